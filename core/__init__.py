@@ -1,0 +1,56 @@
+"""tailgauge core: portfolio loss models and variance-reduced tail estimators.
+
+Pure computation (numpy and scipy only); the service layer wraps it over HTTP.
+"""
+
+from core.counts import Binomial, ClaimCount, Fixed, NegativeBinomial, Poisson
+from core.errors import LimitError, MethodError, ParameterError, TailgaugeError
+from core.exceedance import METHODS, exceedance
+from core.portfolio import Line, Portfolio
+from core.precision import Precision
+from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
+from core.severities import (
+    Capped,
+    Excess,
+    Exponential,
+    Gamma,
+    GeneralizedPareto,
+    Lognormal,
+    Normal,
+    Pareto,
+    Severity,
+    Weibull,
+)
+
+ENGINE_VERSION = "0.1.0"
+
+__all__ = [
+    "ENGINE_VERSION",
+    "METHODS",
+    "Binomial",
+    "Capped",
+    "ClaimCount",
+    "Diagnostics",
+    "ExceedanceEstimate",
+    "ExceedanceResult",
+    "Excess",
+    "Exponential",
+    "Fixed",
+    "Gamma",
+    "GeneralizedPareto",
+    "LimitError",
+    "Line",
+    "Lognormal",
+    "MethodError",
+    "NegativeBinomial",
+    "Normal",
+    "ParameterError",
+    "Pareto",
+    "Poisson",
+    "Portfolio",
+    "Precision",
+    "Severity",
+    "TailgaugeError",
+    "Weibull",
+    "exceedance",
+]

@@ -1,0 +1,86 @@
+"""The automatic choice: candidates from the tails in the model, then a short pilot of each,
+compared by work-normalised variance (relative variance times a deterministic work proxy)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from core.diagnostics import ContributionStats
+from core.estimators import conditional, crude, tilted
+from core.estimators.base import Group
+from core.portfolio import Portfolio
+from core.sampling import PILOT, block_rng
+
+PILOT_SAMPLES = 4096
+# Pilot streams of different candidates must not share random numbers with each other.
+_PILOT_GROUP_BASE = {"crude": 1 << 20, "conditional": 2 << 20, "tilted": 3 << 20}
+METHOD_STREAM = {"crude": 0, "conditional": 1, "conditional_is": 2, "tilted": 3}
+
+
+def candidates(portfolio: Portfolio) -> list[str]:
+    if portfolio.is_light:
+        return ["tilted", "crude"]
+    return ["conditional_is", "conditional", "crude"]
+
+
+def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> list[Group]:
+    if name == "crude":
+        return crude.plan(portfolio, x)
+    if name == "conditional":
+        return conditional.plan_plain(portfolio, x)
+    if name == "conditional_is":
+        return conditional.plan_is(portfolio, x, seed)
+    if name == "tilted":
+        return tilted.plan(portfolio, x)
+    raise ValueError(name)
+
+
+@dataclass
+class Trial:
+    name: str
+    groups: list[Group]
+    cost: float
+    reliable: np.ndarray  # one flag per threshold
+    relvar: np.ndarray
+
+
+def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
+    groups = plan(name, portfolio, x, seed)
+    relvar = np.full(x.size, math.inf)
+    reliable = np.zeros(x.size, dtype=bool)
+    cost = 0.0
+    for g, group in enumerate(groups):
+        rng = block_rng(seed, PILOT, _PILOT_GROUP_BASE.get(name, 4 << 20) + g, 0)
+        stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
+        mean = np.asarray(stats.mean, dtype=float)
+        se = np.asarray(stats.std_error, dtype=float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            rv = np.where(mean > 0, (se / mean) ** 2 * PILOT_SAMPLES, math.inf)
+        idx = list(group.indices)
+        relvar[idx] = rv
+        reliable[idx] = [d.reliable for d in stats.diagnose()]
+        # A shared sample set costs its work once for all of its thresholds.
+        cost += float(np.max(rv)) * group.work
+    return Trial(name, groups, cost, reliable, relvar)
+
+
+def choose(portfolio: Portfolio, x: np.ndarray, seed: int) -> tuple[list[Trial], str]:
+    """Trials ordered best first, and the reason in words."""
+    trials = [pilot(name, portfolio, x, seed) for name in candidates(portfolio)]
+    trials.sort(key=lambda t: (not t.reliable.all(), t.cost))
+    best = trials[0]
+    others = ", ".join(
+        f"{t.name} {t.cost / best.cost:.3g}x" if math.isfinite(t.cost) and best.cost > 0
+        else f"{t.name} (no hits in pilot)" for t in trials[1:]
+    )
+    tails = "light tails" if portfolio.is_light else "heavy tails"
+    reason = (
+        f"{tails}: pilot of {PILOT_SAMPLES} samples per candidate; {best.name} has the lowest "
+        f"work-normalised variance" + (f" (others relative: {others})" if others else "")
+    )
+    if not best.reliable.all():
+        reason += "; no candidate passed every reliability check in the pilot"
+    return trials, reason

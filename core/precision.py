@@ -1,0 +1,103 @@
+"""The run-until loop: draw blocks until the target relative error, the sample cap or the time
+limit is reached, and say which one stopped it."""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from core.diagnostics import ContributionStats
+from core.errors import ParameterError
+from core.estimators.base import Group
+from core.sampling import MAIN, block_rng, blocks
+
+DEFAULT_SAMPLES = 100_000
+DEFAULT_MAX_SAMPLES = 2_000_000
+TOP_K = 1024
+
+
+@dataclass(frozen=True, kw_only=True)
+class Precision:
+    """What the caller asks for. samples: a fixed count (or the minimum when relative_error is
+    also given); relative_error: run until every estimate reaches it; max_samples: the cap
+    per sample set; time_limit_s: wall-clock limit for the whole call."""
+
+    relative_error: float | None = None
+    samples: int | None = None
+    max_samples: int | None = None
+    time_limit_s: float | None = None
+
+    def __post_init__(self) -> None:
+        re = self.relative_error
+        if re is not None and not (0.0 < re < 1.0 and math.isfinite(re)):
+            raise ParameterError("precision.relative_error", f"must be in (0, 1), got {re!r}")
+        for name in ("samples", "max_samples"):
+            v = getattr(self, name)
+            if v is not None and (int(v) != v or v < 100):
+                raise ParameterError(f"precision.{name}", f"must be an integer >= 100, got {v!r}")
+        if self.samples and self.max_samples and self.max_samples < self.samples:
+            raise ParameterError("precision.max_samples", "must be >= precision.samples")
+        t = self.time_limit_s
+        if t is not None and not (t > 0 and math.isfinite(t)):
+            raise ParameterError("precision.time_limit_s", f"must be > 0, got {t!r}")
+
+    @property
+    def minimum(self) -> int:
+        if self.samples is not None:
+            return int(self.samples)
+        return 10_000 if self.relative_error is not None else DEFAULT_SAMPLES
+
+    @property
+    def cap(self) -> int:
+        if self.relative_error is None:
+            return self.minimum
+        return int(self.max_samples or max(DEFAULT_MAX_SAMPLES, self.minimum))
+
+
+@dataclass
+class GroupRun:
+    stats: ContributionStats
+    samples: int
+    stopped_by: str
+
+
+def _worst_relative_error(stats: ContributionStats) -> float:
+    mean = np.asarray(stats.mean, dtype=float)
+    se = np.asarray(stats.std_error, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        re = np.where(mean > 0, se / mean, np.inf)
+    return float(np.max(re))
+
+
+def run_group(
+    group: Group, block: int, precision: Precision, seed: int, group_id: int,
+    deadline: float | None,
+) -> GroupRun:
+    """Draw blocks of one group until its stopping rule fires."""
+    stats: ContributionStats | None = None
+    done, next_check, index = 0, precision.minimum, 0
+    cap = precision.cap
+    target = precision.relative_error
+    while True:
+        for b, m in blocks(next_check - done, block, start=index):
+            values = group.block_values(m, block_rng(seed, MAIN, group_id, b))
+            chunk = ContributionStats.from_samples(values, top_k=TOP_K)
+            stats = chunk if stats is None else stats.merge(chunk)
+            done, index = done + m, b + 1
+            if deadline is not None and time.monotonic() > deadline:
+                return GroupRun(stats, done, "time_limit")
+        assert stats is not None
+        if target is None:
+            return GroupRun(stats, done, "samples")
+        worst = _worst_relative_error(stats)
+        if worst <= target:
+            return GroupRun(stats, done, "relative_error")
+        if done >= cap:
+            return GroupRun(stats, done, "max_samples")
+        # Aim at the count the current error predicts, growing at most fourfold per round.
+        want = done * min(4.0, max(1.25, 1.1 * (worst / target) ** 2)) if math.isfinite(
+            worst) else 4.0 * done
+        next_check = int(min(cap, max(done + block, want)))

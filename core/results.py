@@ -1,0 +1,62 @@
+"""Plain result records returned by the core (no maths here)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+
+@dataclass(frozen=True, kw_only=True)
+class Diagnostics:
+    """How far an estimate's own error bar can be trusted.
+
+    pareto_k: Pareto tail shape k-hat of the largest per-sample contributions (PSIS diagnostic);
+        None when too few non-zero contributions exist to fit it.
+    effective_samples: Kish effective sample size (sum w)^2 / sum w^2 of the contributions.
+    largest_share: the largest single contribution over the total.
+    batch_ratio: spread of batch estimates over independent sub-streams divided by the
+        spread the reported standard error predicts (about 1 when healthy).
+    """
+
+    pareto_k: float | None
+    effective_samples: float
+    largest_share: float | None
+    batch_ratio: float | None
+    reliable: bool
+    reason: str
+
+
+@dataclass(frozen=True, kw_only=True)
+class Estimate:
+    """A Monte Carlo (or deterministic) estimate of one probability or expectation."""
+
+    value: float
+    std_error: float | None
+    relative_error: float | None
+    ci_low: float
+    ci_high: float
+    samples: int
+    hits: int
+    diagnostics: Diagnostics
+
+
+@dataclass(frozen=True, kw_only=True)
+class ExceedanceEstimate(Estimate):
+    threshold: float
+    method: str = ""
+
+    @property
+    def probability(self) -> float:
+        return self.value
+
+
+@dataclass(frozen=True, kw_only=True)
+class ExceedanceResult:
+    method: str
+    method_reason: str
+    seed: int
+    elapsed_s: float
+    stopped_by: str
+    mean: float
+    std_dev: float
+    estimates: list[ExceedanceEstimate]
+    warnings: list[str] = field(default_factory=list)

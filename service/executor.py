@@ -1,0 +1,142 @@
+"""The computation pool: engine calls run here, off the event loop.
+
+A process pool is the default because the engine is CPU-bound Python + numpy; a thread pool
+is the fallback where processes cannot be started. Processes are started with "spawn" (not
+"fork"), because forking a server that already runs threads can copy held locks.
+
+Core errors carry two constructor arguments, which the standard exception pickling cannot
+rebuild, so a worker returns them as an ``EngineFailure`` record and the parent raises the
+same error class again.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import multiprocessing
+import threading
+from collections.abc import Callable
+from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass
+from typing import Any, Literal
+
+from core.errors import TailgaugeError
+from service.errors import ComputationUnavailable
+from service.metrics import Metrics
+
+
+@dataclass(frozen=True)
+class EngineFailure:
+    error_class: type[TailgaugeError]
+    parameter: str
+    message: str
+
+    def reraise(self) -> None:
+        raise self.error_class(self.parameter, self.message)
+
+
+def call_engine(fn: Callable[..., Any], args: tuple[Any, ...], kwargs: dict[str, Any]) -> Any:
+    """Run in the worker: call the engine, turning its typed errors into picklable records."""
+    try:
+        return fn(*args, **kwargs)
+    except TailgaugeError as exc:
+        return EngineFailure(type(exc), exc.parameter, exc.message)
+
+
+def _warm_up() -> None:
+    # Import the engine once per worker process, so the first request does not pay for it.
+    import core  # noqa: F401
+
+
+def _noop() -> None:
+    return None
+
+
+class ComputePool:
+    """Owns the executor; created and shut down by the app's lifespan."""
+
+    def __init__(self, *, kind: Literal["process", "thread"], workers: int, metrics: Metrics):
+        self.kind = kind
+        self.workers = workers
+        self.metrics = metrics
+        self._executor: Executor | None = None
+        self._lock = threading.Lock()
+        self._in_flight = 0
+
+    @property
+    def in_flight(self) -> int:
+        return self._in_flight
+
+    def start(self) -> None:
+        self._executor = self._new_executor()
+        if self.kind == "process":
+            # Start the workers now (in the background) rather than on the first request.
+            for _ in range(self.workers):
+                self._executor.submit(_noop)
+
+    def shutdown(self) -> None:
+        if self._executor is not None:
+            self._executor.shutdown(wait=False, cancel_futures=True)
+            self._executor = None
+
+    def _new_executor(self) -> Executor:
+        if self.kind == "process":
+            return ProcessPoolExecutor(
+                max_workers=self.workers,
+                mp_context=multiprocessing.get_context("spawn"),
+                initializer=_warm_up,
+            )
+        return ThreadPoolExecutor(max_workers=self.workers, thread_name_prefix="tailgauge")
+
+    def _finished(self, _: Future[Any]) -> None:
+        with self._lock:
+            self._in_flight -= 1
+        self.metrics.in_flight.dec()
+
+    def _submit(
+        self, executor: Executor, fn: Callable[..., Any], args: tuple[Any, ...],
+        kwargs: dict[str, Any],
+    ) -> Future[Any]:
+        future = executor.submit(call_engine, fn, args, kwargs)
+        with self._lock:
+            self._in_flight += 1
+        self.metrics.in_flight.inc()
+        # Counted down when the work really ends, even if the request gave up waiting.
+        future.add_done_callback(self._finished)
+        return future
+
+    async def run(
+        self, fn: Callable[..., Any], *args: Any, wall_limit_s: float, **kwargs: Any
+    ) -> Any:
+        """Run ``fn(*args, **kwargs)`` in the pool; give up after ``wall_limit_s`` seconds."""
+        executor = self._executor
+        if executor is None:
+            raise RuntimeError("the computation pool is not started")
+        try:
+            future = self._submit(executor, fn, args, kwargs)
+            outcome = await asyncio.wait_for(asyncio.wrap_future(future), timeout=wall_limit_s)
+        except TimeoutError:
+            self.metrics.unavailable.labels("time_limit").inc()
+            raise ComputationUnavailable(
+                ["body", "precision", "time_limit_s"],
+                f"the computation did not finish within the server's wall-time limit of "
+                f"{wall_limit_s:g} s",
+                "time_limit",
+            ) from None
+        except BrokenProcessPool:
+            self.metrics.unavailable.labels("worker_lost").inc()
+            self._replace_broken(executor)
+            raise ComputationUnavailable(
+                ["body"], "a computation worker stopped unexpectedly; try again", "worker_lost"
+            ) from None
+        if isinstance(outcome, EngineFailure):
+            outcome.reraise()
+        return outcome
+
+    def _replace_broken(self, broken: Executor) -> None:
+        # Several requests may see the same broken pool; only the first replaces it.
+        with self._lock:
+            if self._executor is not broken:
+                return
+            self._executor = self._new_executor()
+        broken.shutdown(wait=False, cancel_futures=True)

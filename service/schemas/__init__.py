@@ -1,0 +1,1 @@
+"""Request and response schemas, one module per resource; shared parts in common.py."""

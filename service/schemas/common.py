@@ -1,0 +1,289 @@
+"""Schemas shared by every resource: numbers, the portfolio model, precision, diagnostics.
+
+Numbers are strict (a string such as "1.5" is refused, not coerced) and finite (NaN and
+Infinity literals are refused). Money amounts are in one currency unit of the caller's
+choosing; thresholds, retentions, limits and severity scales must all use the same unit.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+# JavaScript clients hold integers exactly only up to 2**53 - 1; seeds stay inside that range.
+MAX_JSON_SAFE_INT = 2**53 - 1
+
+Finite = Annotated[float, Field(strict=True, allow_inf_nan=False)]
+Positive = Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0)]
+NonNegative = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=0)]
+Count = Annotated[int, Field(strict=True, ge=0)]
+
+
+class RequestModel(BaseModel):
+    """Base of request models: unknown keys are errors, so typos are caught."""
+
+    model_config = ConfigDict(extra="forbid")
+
+
+# --- claim-count distributions (tag: kind) -------------------------------------------------
+
+
+class FixedCount(RequestModel):
+    kind: Literal["fixed"] = Field(description="A fixed number of claims per period.")
+    n: Count = Field(description="Number of claims in every period (integer >= 0).")
+
+
+class PoissonCount(RequestModel):
+    kind: Literal["poisson"] = Field(description="Poisson number of claims per period.")
+    mean: Positive = Field(description="Expected number of claims per period (> 0).")
+
+
+class NegativeBinomialCount(RequestModel):
+    kind: Literal["negative_binomial"] = Field(
+        description="Negative binomial number of claims per period (over-dispersed Poisson)."
+    )
+    mean: Positive = Field(description="Expected number of claims per period (> 0).")
+    dispersion: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=1)] = Field(
+        description="Variance-to-mean ratio of the claim count (> 1; 1 would be Poisson)."
+    )
+
+
+class BinomialCount(RequestModel):
+    kind: Literal["binomial"] = Field(
+        description="Binomial number of claims per period (e.g. a fixed set of risks)."
+    )
+    trials: Annotated[int, Field(strict=True, ge=1)] = Field(
+        description="Number of independent risks that can each claim once (integer >= 1)."
+    )
+    probability: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, le=1)] = Field(
+        description="Probability that a risk claims in the period, in (0, 1]."
+    )
+
+
+ClaimCount = Annotated[
+    FixedCount | PoissonCount | NegativeBinomialCount | BinomialCount,
+    Field(discriminator="kind", description="Claim-count distribution per period, by kind."),
+]
+
+
+# --- claim-severity distributions (tag: family) --------------------------------------------
+
+
+class LognormalSeverity(RequestModel):
+    family: Literal["lognormal"] = Field(description="Lognormal claim size: log X ~ N(mu, sigma).")
+    mu: Finite = Field(description="Mean of log claim size (log money units).")
+    sigma: Positive = Field(description="Standard deviation of log claim size (> 0).")
+
+
+class ParetoSeverity(RequestModel):
+    family: Literal["pareto"] = Field(
+        description="Pareto (Lomax) claim size with survival (1 + x/scale)^-alpha, x > 0."
+    )
+    alpha: Positive = Field(description="Tail index (> 0); the mean is finite only if > 1.")
+    scale: Positive = Field(description="Scale in money units (> 0).")
+
+
+class WeibullSeverity(RequestModel):
+    family: Literal["weibull"] = Field(
+        description="Weibull claim size with survival exp(-(x/scale)^shape)."
+    )
+    shape: Positive = Field(description="Shape (> 0); below 1 the tail is heavier than exponential.")
+    scale: Positive = Field(description="Scale in money units (> 0).")
+
+
+class GammaSeverity(RequestModel):
+    family: Literal["gamma"] = Field(description="Gamma claim size; mean = shape * scale.")
+    shape: Positive = Field(description="Shape (> 0).")
+    scale: Positive = Field(description="Scale in money units (> 0).")
+
+
+class ExponentialSeverity(RequestModel):
+    family: Literal["exponential"] = Field(description="Exponential claim size.")
+    mean: Positive = Field(description="Mean claim size in money units (> 0).")
+
+
+class NormalSeverity(RequestModel):
+    family: Literal["normal"] = Field(
+        description="Normal claim size (can be negative: for net amounts such as P&L)."
+    )
+    mean: Finite = Field(description="Mean claim size in money units.")
+    sd: Positive = Field(description="Standard deviation in money units (> 0).")
+
+
+class GeneralizedParetoSeverity(RequestModel):
+    family: Literal["generalized_pareto"] = Field(
+        description="Generalized Pareto claim size with survival (1 + xi*x/scale)^(-1/xi); "
+        "exponential at xi = 0, bounded by scale/(-xi) when xi < 0."
+    )
+    xi: Finite = Field(description="Shape (tail index); > 0 is heavy-tailed.")
+    scale: Positive = Field(description="Scale in money units (> 0).")
+
+
+Severity = Annotated[
+    LognormalSeverity
+    | ParetoSeverity
+    | WeibullSeverity
+    | GammaSeverity
+    | ExponentialSeverity
+    | NormalSeverity
+    | GeneralizedParetoSeverity,
+    Field(discriminator="family", description="Claim-size distribution, by family."),
+]
+
+
+def severity_upper_end(severity: Severity) -> float | None:
+    """Right end of the claim-size support, or None when unbounded."""
+    if isinstance(severity, GeneralizedParetoSeverity) and severity.xi < 0:
+        return severity.scale / -severity.xi
+    return None
+
+
+# --- portfolio ------------------------------------------------------------------------------
+
+
+class LineSpec(RequestModel):
+    label: Annotated[str, Field(max_length=200)] | None = Field(
+        default=None, description="Name of the line of business (free text, for the caller)."
+    )
+    count: ClaimCount
+    severity: Severity
+    retention: NonNegative = Field(
+        default=0.0,
+        description="Per-claim retention (deductible) in money units: each claim pays "
+        "min(max(X - retention, 0), limit).",
+    )
+    limit: Positive | None = Field(
+        default=None, description="Per-claim limit in money units (> 0); null = unlimited."
+    )
+
+    @model_validator(mode="after")
+    def _layer_can_pay(self) -> LineSpec:
+        # A retention at or above the largest possible claim makes the line pay nothing,
+        # which is almost surely a units mistake rather than an intended model.
+        top = severity_upper_end(self.severity)
+        if top is not None and self.retention >= top:
+            raise ValueError(
+                f"retention {self.retention:g} is at or above the largest possible claim "
+                f"{top:g} (scale / -xi), so the line can never pay"
+            )
+        return self
+
+
+class PortfolioSpec(RequestModel):
+    lines: list[LineSpec] = Field(
+        min_length=1,
+        description="Independent lines of business; the portfolio loss S is the sum of their "
+        "per-period aggregate losses.",
+    )
+
+
+# --- method and precision -------------------------------------------------------------------
+
+Method = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion"]
+
+METHOD_DESCRIPTION = (
+    "Estimator: auto (chosen from the model's tails and a short pilot), crude (plain Monte "
+    "Carlo), tilted (exponential tilting, light tails), conditional (Asmussen-Kroese "
+    "conditional Monte Carlo, heavy tails), conditional_is (conditional Monte Carlo over which "
+    "claim is largest), recursion (deterministic discretised recursion with lower and upper "
+    "bounds)."
+)
+
+
+class PrecisionSpec(RequestModel):
+    relative_error: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, lt=1)] | None = (
+        Field(
+            default=None,
+            description="Target relative error (standard error / estimate) of every estimate, "
+            "in (0, 1); sampling continues until it is met or a budget is spent. Given "
+            "without max_samples it means 'as precise as possible': the server's own budgets "
+            "apply, with a warning when they stop the run.",
+        )
+    )
+    samples: Annotated[int, Field(strict=True, ge=1)] | None = Field(
+        default=None, description="Fixed number of simulated periods (samples) to draw."
+    )
+    max_samples: Annotated[int, Field(strict=True, ge=1)] | None = Field(
+        default=None, description="Largest number of samples to draw while chasing relative_error."
+    )
+    time_limit_s: Positive | None = Field(
+        default=None, description="Wall-time budget of the computation in seconds (> 0)."
+    )
+
+    @model_validator(mode="after")
+    def _budgets_agree(self) -> PrecisionSpec:
+        if (
+            self.samples is not None
+            and self.max_samples is not None
+            and self.max_samples < self.samples
+        ):
+            raise ValueError(
+                f"max_samples ({self.max_samples}) must be at least samples ({self.samples})"
+            )
+        return self
+
+    @property
+    def as_precise_as_possible(self) -> bool:
+        """The caller set a precision target but no sample budget of its own."""
+        return self.relative_error is not None and self.max_samples is None
+
+
+class PortfolioRequest(RequestModel):
+    """Fields shared by every request that computes figures of a portfolio's loss S."""
+
+    portfolio: PortfolioSpec
+    method: Method = Field(default="auto", description=METHOD_DESCRIPTION)
+    precision: PrecisionSpec = Field(
+        default_factory=PrecisionSpec,
+        description="Precision target and budgets; server limits apply to every budget.",
+    )
+    seed: Annotated[int, Field(strict=True, ge=0, le=MAX_JSON_SAFE_INT)] | None = Field(
+        default=None,
+        description="Root seed of the random streams (0 .. 2^53-1); the same seed and request "
+        "give the same figures. Drawn by the server and returned when absent.",
+    )
+
+
+# --- response parts -------------------------------------------------------------------------
+
+
+class DiagnosticsOut(BaseModel):
+    pareto_k: float | None = Field(
+        description="Pareto shape k-hat fitted to the largest per-sample contributions; above "
+        "about 0.7 the standard error is not trustworthy. Null when too few contributions."
+    )
+    effective_samples: float | None = Field(
+        description="Kish effective sample size (sum w)^2 / sum w^2 of the contributions."
+    )
+    largest_share: float | None = Field(
+        description="Share of the estimate carried by the single largest contribution, in [0, 1]."
+    )
+    batch_ratio: float | None = Field(
+        description="Spread of independent batch estimates over the spread the standard error "
+        "predicts; about 1 when healthy."
+    )
+    reliable: bool = Field(description="Whether the error bar of this estimate can be trusted.")
+    reason: str = Field(description="Why the estimate is (or is not) considered reliable.")
+
+
+class ComputationOut(BaseModel):
+    """Fields shared by every computed response."""
+
+    engine_version: str = Field(description="Version of the computation engine.")
+    method: str = Field(description="Estimator actually used (see the request's method).")
+    method_reason: str = Field(description="Why this estimator was used.")
+    seed: int = Field(description="Root seed that reproduces these figures (0 .. 2^53-1).")
+    elapsed_s: float | None = Field(description="Engine wall time in seconds.")
+    stopped_by: str = Field(
+        description="Budget that ended sampling: relative_error (target met), samples, "
+        "max_samples or time_limit."
+    )
+    mean: float | None = Field(
+        description="Exact mean of the portfolio loss S in money units; null when infinite."
+    )
+    std_dev: float | None = Field(
+        description="Exact standard deviation of S in money units; null when infinite "
+        "(e.g. a Pareto line with alpha <= 2)."
+    )
+    warnings: list[str] = Field(description="Things the caller should know about these figures.")

@@ -1,0 +1,67 @@
+"""The one settings object of the service, read from TAILGAUGE_* environment variables."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+from typing import Literal
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+# The examples ship next to the packages in the repository (editable install).
+DEFAULT_EXAMPLES_DIR = Path(__file__).resolve().parents[1] / "openapi_examples"
+
+
+class Settings(BaseSettings):
+    """Server, compute-pool and request-limit settings.
+
+    Every field can be set from the environment, e.g. ``TAILGAUGE_PORT=9000`` or
+    ``TAILGAUGE_MAX_SAMPLES=1000000``.
+    """
+
+    model_config = SettingsConfigDict(env_prefix="TAILGAUGE_", extra="ignore")
+
+    host: str = Field(default="127.0.0.1", description="Interface the server listens on.")
+    port: int = Field(default=8000, ge=0, le=65535, description="TCP port of the server.")
+    data_dir: Path = Field(
+        default=Path("./data"),
+        description="Directory for the service's files (the run store lives here); created "
+        "at start-up.",
+    )
+    workers: int = Field(
+        default_factory=lambda: os.cpu_count() or 1,
+        ge=1,
+        description="Size of the computation pool (default: number of CPUs).",
+    )
+    executor: Literal["process", "thread"] = Field(
+        default="process",
+        description="Kind of computation pool: processes (CPU work in parallel) or threads "
+        "(fallback where processes cannot be started).",
+    )
+    max_body_bytes: int = Field(
+        default=1024 * 1024, ge=1, description="Largest accepted request body, in bytes (413)."
+    )
+    max_samples: int = Field(
+        default=10_000_000, ge=1, description="Largest sample budget one request may ask for."
+    )
+    time_limit_s: float = Field(
+        default=60.0, gt=0, description="Longest computation time one request may ask for, s."
+    )
+    time_limit_grace_s: float = Field(
+        default=5.0,
+        ge=0,
+        description="Extra wall time allowed past time_limit_s before the server gives up "
+        "waiting for the engine (503).",
+    )
+    max_thresholds: int = Field(default=1000, ge=1, description="Most thresholds per request.")
+    max_lines: int = Field(default=200, ge=1, description="Most lines per portfolio.")
+    max_expected_claims: float = Field(
+        default=100_000,
+        gt=0,
+        description="Largest expected number of claims per simulated year (per sample).",
+    )
+    examples_dir: Path = Field(
+        default=DEFAULT_EXAMPLES_DIR,
+        description="Directory of JSON request bodies shown as OpenAPI examples.",
+    )

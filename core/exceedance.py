@@ -49,7 +49,7 @@ def _estimate(
     x: float, stats: ContributionStats, col: int, samples: int, method: str,
 ) -> ExceedanceEstimate:
     diag: Diagnostics = stats.diagnose()[col]
-    p = float(np.asarray(stats.mean)[col])
+    p = float(np.asarray(stats.mean())[col])
     hits = int(np.asarray(stats.hits)[col])
     if hits == 0 or p <= 0.0:
         # Nothing observed: a one-sided 95% bound (the rule of three for a crude count).
@@ -58,7 +58,7 @@ def _estimate(
             ci_high=min(1.0, -math.log(0.05) / samples), samples=samples, hits=0,
             diagnostics=diag, method=method,
         )
-    se = float(np.asarray(stats.std_error)[col])
+    se = float(np.asarray(stats.std_error())[col])
     return ExceedanceEstimate(
         threshold=x, value=p, std_error=se, relative_error=se / p,
         ci_low=max(0.0, p - Z95 * se), ci_high=min(1.0, p + Z95 * se), samples=samples,

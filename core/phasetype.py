@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.linalg import expm  # type: ignore[import-untyped]
+from scipy.linalg import expm
 
 from core.errors import ParameterError
 
@@ -68,7 +68,7 @@ class PhaseTypeParts:
         return np.asarray((ones - rest) @ (self.alpha @ inv), dtype=np.float64)
 
     def lev2(self, t: _Floats) -> _Floats:
-        """E[min(X, t)^2] = 2 alpha [t T^-1 e^{Tt} - T^-2 (e^{Tt} - I)] 1 (from x e^{Tx} by parts)."""
+        """E[min(X, t)^2] = 2 alpha [t T^-1 e^{Tt} - T^-2 (e^{Tt} - I)] 1 (by parts on x e^{Tx})."""
         inv_t = np.linalg.inv(self.T)
         ones = np.ones(self.phases)
         e_t = self._shifted_expm(t) * np.exp(-self.decay * t)[:, None, None]
@@ -78,7 +78,7 @@ class PhaseTypeParts:
         return np.asarray(2.0 * (first - second) @ self.alpha, dtype=np.float64)
 
     def mgf_terms(self, theta: float) -> tuple[float, float, float]:
-        """(M, M', M'') at theta < eta: alpha R t, alpha R^2 t, 2 alpha R^3 t, R = (-theta I - T)^-1."""
+        """(M, M', M'') at theta < eta: alpha R t, alpha R^2 t, 2 alpha R^3 t, R = (-theta-T)^-1."""
         resolvent = np.linalg.inv(-theta * np.eye(self.phases) - self.T)
         v1 = resolvent @ self.exit
         v2 = resolvent @ v1

@@ -65,8 +65,8 @@ class GroupRun:
 
 
 def _worst_relative_error(stats: ContributionStats) -> float:
-    mean = np.asarray(stats.mean, dtype=float)
-    se = np.asarray(stats.std_error, dtype=float)
+    mean = np.asarray(stats.mean(), dtype=float)
+    se = np.asarray(stats.std_error(), dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         re = np.where(mean > 0, se / mean, np.inf)
     return float(np.max(re))
@@ -77,19 +77,19 @@ def run_group(
     deadline: float | None,
 ) -> GroupRun:
     """Draw blocks of one group until its stopping rule fires."""
-    stats: ContributionStats | None = None
+    parts: list[ContributionStats] = []
     done, next_check, index = 0, precision.minimum, 0
     cap = precision.cap
     target = precision.relative_error
     while True:
         for b, m in blocks(next_check - done, block, start=index):
             values = group.block_values(m, block_rng(seed, MAIN, group_id, b))
-            chunk = ContributionStats.from_samples(values, top_k=TOP_K)
-            stats = chunk if stats is None else stats.merge(chunk)
+            parts.append(ContributionStats.from_samples(values, top_k=TOP_K, chunk=b))
             done, index = done + m, b + 1
             if deadline is not None and time.monotonic() > deadline:
-                return GroupRun(stats, done, "time_limit")
-        assert stats is not None
+                return GroupRun(ContributionStats.combine(parts), done, "time_limit")
+        stats = ContributionStats.combine(parts)
+        parts = [stats]
         if target is None:
             return GroupRun(stats, done, "samples")
         worst = _worst_relative_error(stats)

@@ -43,7 +43,7 @@ def detail_entry(loc: list[str | int], msg: str, type_: str) -> dict[str, Any]:
 
 
 def parameter_loc(parameter: str) -> list[str | int]:
-    """'portfolio.lines[0].severity.sigma' -> ['body', 'portfolio', 'lines', 0, 'severity', 'sigma']."""
+    """'portfolio.lines[0].severity.sigma' -> body, portfolio, lines, 0, severity, sigma."""
     loc: list[str | int] = ["body"]
     for name, index in _PATH_TOKEN.findall(parameter):
         loc.append(int(index) if index else name)
@@ -53,7 +53,7 @@ def parameter_loc(parameter: str) -> list[str | int]:
 def error_type(exc: TailgaugeError) -> str:
     for cls in type(exc).__mro__:
         if cls in _ERROR_TYPES:
-            return _ERROR_TYPES[cls]  # type: ignore[index]
+            return _ERROR_TYPES[cls]
     return "engine_error"
 
 

@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import re
 import time
+from collections.abc import Iterable
 
+from fastapi import APIRouter
+from fastapi.routing import APIRoute
 from prometheus_client import CollectorRegistry, Counter, Gauge, Histogram, generate_latest
-from starlette.routing import Match
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 UNMATCHED_ROUTE = "<unmatched>"
@@ -52,15 +55,28 @@ class Metrics:
         return generate_latest(self.registry)
 
 
-def _route_template(app: ASGIApp, scope: Scope) -> str:
+RouteTemplates = list[tuple[re.Pattern[str], str]]
+
+
+def route_templates(routers: Iterable[APIRouter]) -> RouteTemplates:
+    """(path regex, template) of every route, to label requests answered before routing."""
+    return [
+        (route.path_regex, route.path)
+        for router in routers
+        for route in router.routes
+        if isinstance(route, APIRoute)
+    ]
+
+
+def _route_template(templates: RouteTemplates, scope: Scope) -> str:
     route = scope.get("route")
     if route is not None and hasattr(route, "path"):
         return str(route.path)
     # Answered before routing (e.g. 413 from the body limit): find the template ourselves.
-    for candidate in getattr(app, "routes", ()):
-        match, _ = candidate.matches(scope)
-        if match == Match.FULL:
-            return str(candidate.path)
+    path = str(scope.get("path", ""))
+    for regex, template in templates:
+        if regex.match(path):
+            return template
     return UNMATCHED_ROUTE
 
 
@@ -71,10 +87,10 @@ class MetricsMiddleware:
     of series stays bounded whatever clients send.
     """
 
-    def __init__(self, app: ASGIApp, *, metrics: Metrics, router_app: ASGIApp) -> None:
+    def __init__(self, app: ASGIApp, *, metrics: Metrics, templates: RouteTemplates) -> None:
         self.app = app
         self.metrics = metrics
-        self.router_app = router_app
+        self.templates = templates
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http":
@@ -92,7 +108,7 @@ class MetricsMiddleware:
         try:
             await self.app(scope, receive, recording_send)
         finally:
-            route = _route_template(self.router_app, scope)
+            route = _route_template(self.templates, scope)
             method = str(scope.get("method", ""))
             self.metrics.requests.labels(method, route, str(status)).inc()
             self.metrics.latency.labels(method, route).observe(time.perf_counter() - started)

@@ -43,7 +43,7 @@ class Settings(BaseSettings):
         default=1024 * 1024, ge=1, description="Largest accepted request body, in bytes (413)."
     )
     max_samples: int = Field(
-        default=10_000_000, ge=1, description="Largest sample budget one request may ask for."
+        default=10_000_000, ge=100, description="Largest sample budget one request may ask for."
     )
     time_limit_s: float = Field(
         default=60.0, gt=0, description="Longest computation time one request may ask for, s."

@@ -55,8 +55,8 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
     for g, group in enumerate(groups):
         rng = block_rng(seed, PILOT, _PILOT_GROUP_BASE.get(name, 4 << 20) + g, 0)
         stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
-        mean = np.asarray(stats.mean, dtype=float)
-        se = np.asarray(stats.std_error, dtype=float)
+        mean = np.asarray(stats.mean(), dtype=float)
+        se = np.asarray(stats.std_error(), dtype=float)
         with np.errstate(divide="ignore", invalid="ignore"):
             rv = np.where(mean > 0, (se / mean) ** 2 * PILOT_SAMPLES, math.inf)
         idx = list(group.indices)

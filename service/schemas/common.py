@@ -13,6 +13,8 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 # JavaScript clients hold integers exactly only up to 2**53 - 1; seeds stay inside that range.
 MAX_JSON_SAFE_INT = 2**53 - 1
+# Fewer samples than this give no usable error bar; the engine refuses them too.
+MIN_SAMPLES = 100
 
 Finite = Annotated[float, Field(strict=True, allow_inf_nan=False)]
 Positive = Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0)]
@@ -88,7 +90,9 @@ class WeibullSeverity(RequestModel):
     family: Literal["weibull"] = Field(
         description="Weibull claim size with survival exp(-(x/scale)^shape)."
     )
-    shape: Positive = Field(description="Shape (> 0); below 1 the tail is heavier than exponential.")
+    shape: Positive = Field(
+        description="Shape (> 0); below 1 the tail is heavier than exponential."
+    )
     scale: Positive = Field(description="Scale in money units (> 0).")
 
 
@@ -148,10 +152,11 @@ class LineSpec(RequestModel):
     )
     count: ClaimCount
     severity: Severity
-    retention: NonNegative = Field(
-        default=0.0,
-        description="Per-claim retention (deductible) in money units: each claim pays "
-        "min(max(X - retention, 0), limit).",
+    retention: NonNegative | None = Field(
+        default=None,
+        description="Per-claim retention (deductible) in money units (>= 0): each claim pays "
+        "min(max(X - retention, 0), limit). Absent = no layer below: claims are paid as "
+        "drawn (so a normal claim may be negative); 0 floors claims at zero.",
     )
     limit: Positive | None = Field(
         default=None, description="Per-claim limit in money units (> 0); null = unlimited."
@@ -162,7 +167,7 @@ class LineSpec(RequestModel):
         # A retention at or above the largest possible claim makes the line pay nothing,
         # which is almost surely a units mistake rather than an intended model.
         top = severity_upper_end(self.severity)
-        if top is not None and self.retention >= top:
+        if top is not None and self.retention is not None and self.retention >= top:
             raise ValueError(
                 f"retention {self.retention:g} is at or above the largest possible claim "
                 f"{top:g} (scale / -xi), so the line can never pay"
@@ -201,11 +206,16 @@ class PrecisionSpec(RequestModel):
             "apply, with a warning when they stop the run.",
         )
     )
-    samples: Annotated[int, Field(strict=True, ge=1)] | None = Field(
-        default=None, description="Fixed number of simulated periods (samples) to draw."
+    samples: Annotated[int, Field(strict=True, ge=MIN_SAMPLES)] | None = Field(
+        default=None,
+        description="Number of simulated periods (samples) to draw (>= 100): exactly this "
+        "many, or the minimum before checking relative_error when that is also given. Absent: "
+        "the engine's default.",
     )
-    max_samples: Annotated[int, Field(strict=True, ge=1)] | None = Field(
-        default=None, description="Largest number of samples to draw while chasing relative_error."
+    max_samples: Annotated[int, Field(strict=True, ge=MIN_SAMPLES)] | None = Field(
+        default=None,
+        description="Largest number of samples per sample set while chasing relative_error "
+        "(>= 100; >= samples). Ignored without relative_error.",
     )
     time_limit_s: Positive | None = Field(
         default=None, description="Wall-time budget of the computation in seconds (> 0)."

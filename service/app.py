@@ -1,0 +1,64 @@
+"""The ASGI application: ``service.app:app``, built by ``create_app(settings)``."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI
+
+from service.body_limit import BodyLimitMiddleware
+from service.errors import install_error_handlers
+from service.examples import load_examples
+from service.executor import ComputePool
+from service.metrics import Metrics, MetricsMiddleware, route_templates
+from service.routes import exceedance, health, metrics
+from service.schemas.exceedance import ExceedanceRequest
+from service.settings import Settings
+
+DESCRIPTION = """\
+Tail-risk figures of a portfolio loss model from variance-reduced Monte Carlo: exceedance
+probabilities, each with a 95% interval, the seed that reproduces it and the precision reached.
+
+**Cautions.** Model risk dominates sampling error: the intervals cover the sampling error of
+the stated model only. Results are estimates for that model, not advice. Capital and reserving
+figures follow the local regulator's rules and need a qualified actuary's sign-off.
+"""
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    settings = settings if settings is not None else Settings()
+    instruments = Metrics()
+    pool = ComputePool(kind=settings.executor, workers=settings.workers, metrics=instruments)
+
+    @asynccontextmanager
+    async def lifespan(_: FastAPI) -> AsyncIterator[None]:
+        settings.data_dir.mkdir(parents=True, exist_ok=True)
+        pool.start()
+        try:
+            yield
+        finally:
+            pool.shutdown()
+
+    app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan)
+    app.state.settings = settings
+    app.state.metrics = instruments
+    app.state.pool = pool
+    install_error_handlers(app)
+    examples = load_examples(settings.examples_dir, "exceedance", ExceedanceRequest)
+    routers = [
+        exceedance.build_router(examples=examples),
+        health.build_router(),
+        metrics.build_router(),
+    ]
+    for router in routers:
+        app.include_router(router)
+    # Added last = outermost: metrics see every answer, including the body limit's 413.
+    app.add_middleware(BodyLimitMiddleware, max_body_bytes=settings.max_body_bytes)
+    app.add_middleware(
+        MetricsMiddleware, metrics=instruments, templates=route_templates(routers)
+    )
+    return app
+
+
+app = create_app()

@@ -1,0 +1,53 @@
+"""POST /v1/exceedance: exceedance probabilities P(S > x) of the portfolio loss S."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Body
+
+import core
+from service import compute, limits, translate
+from service.deps import MetricsDep, PoolDep, SettingsDep
+from service.routes.responses import ERROR_RESPONSES
+from service.schemas.exceedance import ExceedanceRequest, ExceedanceResponse
+
+
+def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
+    router = APIRouter(prefix="/v1", tags=["exceedance"])
+
+    @router.post(
+        "/exceedance",
+        response_model=ExceedanceResponse,
+        summary="Exceedance probabilities of the portfolio loss",
+        responses=ERROR_RESPONSES,
+    )
+    async def post_exceedance(
+        request: Annotated[ExceedanceRequest, Body(openapi_examples=examples)],
+        settings: SettingsDep,
+        pool: PoolDep,
+        metrics: MetricsDep,
+    ) -> ExceedanceResponse:
+        """P(S > x) for every threshold x, where S is the portfolio's loss over one period,
+        with a 95% interval, the seed that reproduces it and the precision reached."""
+        limits.check_list_length(
+            "thresholds", len(request.thresholds), settings.max_thresholds, "max_thresholds"
+        )
+        job = compute.prepare(request, settings)
+        result = await compute.run_engine(
+            pool,
+            core.exceedance,
+            job.portfolio,
+            request.thresholds,
+            wall_limit_s=job.budget.wall_limit_s,
+            method=request.method,
+            precision=job.budget.precision,
+            seed=job.seed,
+        )
+        metrics.samples.labels("exceedance").inc(translate.samples_behind(result))
+        notes = job.budget.warnings + job.budget.stop_warnings(
+            result.stopped_by, request.precision.relative_error
+        )
+        return translate.exceedance_response(result, warnings=notes)
+
+    return router

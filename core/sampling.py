@@ -201,14 +201,18 @@ class StepwiseTilt:
     @staticmethod
     def _upper(sev: Severity, theta: float, lo: float) -> float:
         """A point beyond which the tilted law has negligible mass (or the cap)."""
-        hi = max(float(sev.isf(1e-3)), lo + 1.0)
         cap = getattr(sev, "cap", None)
         if cap is not None:
             return float(cap)
+        hi = max(float(sev.isf(1e-3)), lo + 1.0)
+        # e^{theta y} sf(y) bounds the tilted tail beyond y; stop 40 e-folds below its peak.
+        peak = -math.inf
         for _ in range(200):
-            if theta * hi + float(sev.logsf(hi)) < float(sev.cumulant(theta)) - 40.0:
+            level = theta * hi + float(sev.logsf(hi))
+            peak = max(peak, level)
+            if level < peak - 40.0:
                 return hi
-            hi *= 1.5
+            hi *= 1.25
         return hi
 
     def sample(self, size: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:

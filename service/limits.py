@@ -28,17 +28,16 @@ class Budget:
 
     def stop_warnings(self, stopped_by: str, relative_error: float | None) -> list[str]:
         """Say so when a budget the server imposed, not the caller's, ended the run."""
-        target = f" before every estimate reached relative_error {relative_error:g}"
+        target = (
+            "" if relative_error is None
+            else f" before every estimate reached relative_error {relative_error:g}"
+        )
         if stopped_by == "max_samples" and self.server_max_samples:
-            return [
-                f"stopped at the server's cap of {self.precision.max_samples} samples per "
-                f"sample set{target if relative_error is not None else ''}"
-            ]
+            cap = self.precision.max_samples
+            return [f"stopped at the server's cap of {cap} samples per sample set{target}"]
         if stopped_by == "time_limit" and self.server_time_limit:
-            return [
-                f"stopped at the server's time limit of {self.precision.time_limit_s:g} s"
-                f"{target if relative_error is not None else ''}"
-            ]
+            limit = self.precision.time_limit_s or 0.0
+            return [f"stopped at the server's time limit of {limit:g} s{target}"]
         return []
 
 

@@ -18,6 +18,7 @@ from core.errors import MethodError
 from core.estimators.base import Group, work_per_sample
 from core.portfolio import Portfolio
 from core.sampling import LineProposal, StepwiseTilt, draw_block
+from core.severities import Severity
 
 
 def _check_light(portfolio: Portfolio) -> None:
@@ -46,13 +47,30 @@ def theta_bound(portfolio: Portfolio) -> float:
     return bound
 
 
+def has_closed_tilt(sev: Severity) -> bool:
+    try:
+        sev.sample_tilted(0.0, 1, np.random.default_rng(0))
+    except NotImplementedError:
+        return False
+    return True
+
+
+def claim_cumulant(sev: Severity, theta: float) -> tuple[float, float]:
+    """(kappa_Y, kappa_Y') of the law actually sampled: the exact tilt where one exists, else
+    the stepwise tilt (its log W, differentiated numerically; only theta's choice uses it)."""
+    if has_closed_tilt(sev):
+        return float(sev.cumulant(theta)), float(sev.cumulant_derivatives(theta)[0])
+    h = 1e-5 * max(1.0, abs(theta))
+    up, down = StepwiseTilt(sev, theta + h).log_w, StepwiseTilt(sev, max(theta - h, 0.0)).log_w
+    return StepwiseTilt(sev, theta).log_w, (up - down) / (theta + h - max(theta - h, 0.0))
+
+
 def kappa(portfolio: Portfolio, theta: float) -> tuple[float, float]:
     """(kappa_S(theta), kappa_S'(theta)) of the aggregate loss."""
     value, slope = 0.0, 0.0
     for line in portfolio.lines:
         sev, law = line.paid_severity, line.paid_count
-        ky = float(sev.cumulant(theta))
-        d1, _ = sev.cumulant_derivatives(theta)
+        ky, d1 = claim_cumulant(sev, theta)
         value += float(law.log_mgf(ky))
         slope += law.tilted(ky).mean * float(d1)
     return value, slope
@@ -76,14 +94,12 @@ def _proposals(portfolio: Portfolio, theta: float):
     props, steps = [], []
     for line in portfolio.lines:
         sev = line.paid_severity
-        ky = float(sev.cumulant(theta))
         step = None
-        if theta != 0.0:
-            try:
-                sev.sample_tilted(theta, 1, np.random.default_rng(0))
-            except NotImplementedError:
-                step = StepwiseTilt(sev, theta)
-                ky = step.log_w
+        if theta != 0.0 and not has_closed_tilt(sev):
+            step = StepwiseTilt(sev, theta)
+            ky = step.log_w
+        else:
+            ky = float(sev.cumulant(theta))
         props.append(LineProposal(count_tilt=ky, claim_tilt=theta))
         steps.append(step)
     return props, steps

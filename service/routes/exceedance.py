@@ -1,6 +1,7 @@
 """POST /v1/exceedance: exceedance probabilities P(S > x) of the portfolio loss S."""
 
-from __future__ import annotations
+# No "from __future__ import annotations": FastAPI must see the endpoint annotations,
+# which refer to names local to build_router.
 
 from typing import Annotated, Any
 
@@ -23,7 +24,7 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
         responses=ERROR_RESPONSES,
     )
     async def post_exceedance(
-        request: Annotated[ExceedanceRequest, Body(openapi_examples=examples)],
+        body: Annotated[ExceedanceRequest, Body(openapi_examples=examples)],
         settings: SettingsDep,
         pool: PoolDep,
         metrics: MetricsDep,
@@ -31,22 +32,22 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
         """P(S > x) for every threshold x, where S is the portfolio's loss over one period,
         with a 95% interval, the seed that reproduces it and the precision reached."""
         limits.check_list_length(
-            "thresholds", len(request.thresholds), settings.max_thresholds, "max_thresholds"
+            "thresholds", len(body.thresholds), settings.max_thresholds, "max_thresholds"
         )
-        job = compute.prepare(request, settings)
+        job = compute.prepare(body, settings)
         result = await compute.run_engine(
             pool,
             core.exceedance,
             job.portfolio,
-            request.thresholds,
+            body.thresholds,
             wall_limit_s=job.budget.wall_limit_s,
-            method=request.method,
+            method=body.method,
             precision=job.budget.precision,
             seed=job.seed,
         )
         metrics.samples.labels("exceedance").inc(translate.samples_behind(result))
         notes = job.budget.warnings + job.budget.stop_warnings(
-            result.stopped_by, request.precision.relative_error
+            result.stopped_by, body.precision.relative_error
         )
         return translate.exceedance_response(result, warnings=notes)
 

@@ -1,6 +1,7 @@
 """GET /v1/health: liveness, answered on the event loop even while computations run."""
 
-from __future__ import annotations
+# No "from __future__ import annotations": FastAPI must see the endpoint annotations,
+# which refer to names local to build_router.
 
 from importlib.metadata import PackageNotFoundError, version
 

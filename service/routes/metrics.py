@@ -1,6 +1,7 @@
 """GET /metrics: the app's Prometheus metrics in the text exposition format."""
 
-from __future__ import annotations
+# No "from __future__ import annotations": FastAPI must see the endpoint annotations,
+# which refer to names local to build_router.
 
 from fastapi import APIRouter, Response
 from prometheus_client import CONTENT_TYPE_LATEST

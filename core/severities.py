@@ -129,6 +129,14 @@ def _log_gamma_q_cf(a: float, x: _Floats) -> _Floats:
     return np.asarray(-x + a * np.log(x) - special.gammaln(a) + np.log(h))
 
 
+def _log1m_exp(log_p: _Floats) -> _Floats:
+    """log(1 - e^log_p) without cancellation on either side of 1/2 (Maechler's switch)."""
+    with np.errstate(divide="ignore"):
+        near_one = log_p > -math.log(2.0)
+        safe = np.where(near_one, log_p, -1.0)
+        return np.where(near_one, np.log(-np.expm1(safe)), np.log1p(-np.exp(log_p)))
+
+
 def _normal_raw_moment(k: int, mean: float, sd: float) -> float:
     """E[(mean + sd Z)^k] by the binomial expansion; E[Z^j] = (j-1)!! for even j."""
     total = 0.0
@@ -175,8 +183,7 @@ class Severity(abc.ABC):
     def _logpdf(self, x: _Floats) -> _Floats: ...
 
     def _logcdf(self, x: _Floats) -> _Floats:
-        with np.errstate(divide="ignore"):
-            return np.log(-np.expm1(self._logsf(x)))
+        return _log1m_exp(self._logsf(x))
 
     def _isf_log(self, log_q: _Floats) -> _Floats:
         return self._isf_log_numeric(log_q)
@@ -704,9 +711,6 @@ class Weibull(Severity):
     def _logsf(self, x: _Floats) -> _Floats:
         return -((x / self.scale) ** self.shape)
 
-    def _logcdf(self, x: _Floats) -> _Floats:
-        return np.log(-np.expm1(-((x / self.scale) ** self.shape)))
-
     def _logpdf(self, x: _Floats) -> _Floats:
         k, y = self.shape, x / self.scale
         return math.log(k / self.scale) + (k - 1) * np.log(y) - y**k
@@ -965,9 +969,6 @@ class Exponential(_Plain):
 
     def _logsf(self, x: _Floats) -> _Floats:
         return -x / self.mean
-
-    def _logcdf(self, x: _Floats) -> _Floats:
-        return np.log(-np.expm1(-x / self.mean))
 
     def _logpdf(self, x: _Floats) -> _Floats:
         return -math.log(self.mean) - x / self.mean

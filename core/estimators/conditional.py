@@ -28,6 +28,10 @@ from core.severities import Capped, Lognormal
 
 _CE_ROUNDS = 3
 _CE_SAMPLES = 4096
+# Share of samples drawn from the model itself (defensive mixture, Hesterberg 1995): it caps
+# the likelihood ratio at 1 / DEFENSIVE, so a region the adapted proposal neglects (one claim
+# filling the gap) cannot hide behind a small reported error.
+DEFENSIVE = 0.1
 
 
 class Conditioning:
@@ -129,7 +133,8 @@ def _start_shift(portfolio: Portfolio, cond: Conditioning, x: float) -> float:
 
 
 def _cross_entropy_step(
-    portfolio: Portfolio, draw: Draw, v: np.ndarray, props: list[LineProposal]
+    portfolio: Portfolio, draw: Draw, v: np.ndarray, props: list[LineProposal],
+    heavy: list[int],
 ) -> list[LineProposal]:
     """One cross-entropy update: weighted maximum likelihood of shift and count tilt."""
     total = v.sum()
@@ -147,7 +152,7 @@ def _cross_entropy_step(
             shift = float(w @ zsum) / mean_count
         tilt = prop.count_tilt
         law = line.paid_count
-        if law.kind != "fixed" and mean_count > 0:
+        if k in heavy and law.kind != "fixed" and mean_count > 0:
             tilt = float(law.tilt_for_mean(max(mean_count, 1e-9)))
             tilt = min(max(tilt, -5.0), 5.0)
         out.append(LineProposal(count_tilt=tilt, normal_shift=shift))
@@ -170,10 +175,10 @@ def adapt(
     for r in range(_CE_ROUNDS):
         rng = block_rng(seed, PILOT, group, r)
         j = cond.choose(_CE_SAMPLES, rng)
-        draw = draw_block(portfolio, _CE_SAMPLES, rng, proposals=props, size_biased=j)
+        draw = mixture_draw(cond, props, _CE_SAMPLES, rng, j)
         v = cond.values(draw, j, xs)[:, 0]
         if r < _CE_ROUNDS - 1:
-            props = _cross_entropy_step(portfolio, draw, v, props)
+            props = _cross_entropy_step(portfolio, draw, v, props, cond.heavy)
     return props, v
 
 
@@ -193,8 +198,7 @@ def _is_group(cond: Conditioning, props: list[LineProposal], i: int, x: float) -
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         j = cond.choose(m, rng)
-        draw = draw_block(portfolio, m, rng, proposals=props, size_biased=j)
-        return cond.values(draw, j, xs)
+        return cond.values(mixture_draw(cond, props, m, rng, j), j, xs)
 
     shifts = ", ".join(
         f"line {k}: shift {p.normal_shift:.3g}, count tilt {p.count_tilt:.3g}"
@@ -202,3 +206,55 @@ def _is_group(cond: Conditioning, props: list[LineProposal], i: int, x: float) -
     )
     work = work_per_sample(portfolio.expected_claims, 1)
     return Group((i,), values, work, f"Asmussen-Kroese with cross-entropy IS ({shifts})")
+
+
+def _adapted_log_lr(
+    portfolio: Portfolio, props: list[LineProposal], draw: Draw, cond_line: np.ndarray
+) -> np.ndarray:
+    """log f/g_adapted at every sample, from its sufficient statistics (normal sums, counts)."""
+    out = np.zeros(draw.total.size)
+    for k, (line, prop) in enumerate(zip(portfolio.lines, props, strict=True)):
+        n = draw.line_counts[k]
+        d, s = prop.normal_shift, prop.count_tilt
+        if d != 0.0:
+            zsum = draw.line_normal_sums[k]
+            assert zsum is not None
+            out += -d * zsum + 0.5 * d * d * n
+        if s != 0.0:
+            law = line.paid_count
+            sb = cond_line == k
+            log_m = np.where(sb, float(law.size_biased_minus_one().log_mgf(s)) if sb.any()
+                             else 0.0, float(law.log_mgf(s)))
+            out += -s * n + log_m
+    return out
+
+
+def _concat(a: Draw, b: Draw) -> Draw:
+    def cat(x: list, y: list) -> list:
+        return [None if p is None or q is None else np.concatenate([p, q])
+                for p, q in zip(x, y, strict=True)]
+
+    return Draw(
+        np.concatenate([a.total, b.total]), np.concatenate([a.log_lr, b.log_lr]),
+        cat(a.line_sums, b.line_sums), cat(a.line_max, b.line_max),
+        cat(a.line_log_lr, b.line_log_lr), cat(a.line_counts, b.line_counts),
+        cat(a.line_normal_sums, b.line_normal_sums),
+    )
+
+
+def mixture_draw(
+    cond: Conditioning, props: list[LineProposal], m: int, rng: np.random.Generator,
+    cond_line: np.ndarray,
+) -> Draw:
+    """Draw m samples from DEFENSIVE * model + (1 - DEFENSIVE) * adapted proposal and weight
+    each by the mixture's exact likelihood ratio 1 / (a + (1 - a) g/f)."""
+    portfolio = cond.portfolio
+    m0 = int(rng.binomial(m, DEFENSIVE))
+    nominal = draw_block(portfolio, m0, rng, size_biased=cond_line[:m0])
+    adapted = draw_block(portfolio, m - m0, rng, proposals=props, size_biased=cond_line[m0:])
+    draw = _concat(nominal, adapted)
+    log_fg = _adapted_log_lr(portfolio, props, draw, cond_line)
+    draw.log_lr = -np.logaddexp(math.log(DEFENSIVE), math.log1p(-DEFENSIVE) - log_fg)
+    for k in cond.light:
+        draw.line_log_lr[k] = np.zeros(m)
+    return draw

@@ -496,9 +496,14 @@ class Severity(abc.ABC):
                 more = grid[-1] * 2.0 ** np.arange(1, 9)
                 grid = np.concatenate([grid, more])
                 log_g = np.concatenate([log_g, theta * more + self._logpdf(more)])
-        peak = int(np.argmax(log_g))
+        # judge where the mass lies by integrand times cell width, so that an integrable spike
+        # of the density at the lower end (gamma or Weibull shape < 1) does not set the window
+        cells = np.diff(np.concatenate([[grid[0]], 0.5 * (grid[1:] + grid[:-1]), [grid[-1]]]))
+        with np.errstate(divide="ignore"):
+            log_mass = log_g + np.log(cells)
+        peak = int(np.argmax(log_mass))
         centre, g_star = float(grid[peak]), float(log_g[peak])
-        keep = np.nonzero(log_g >= g_star - _WINDOW_NATS)[0]
+        keep = np.nonzero(log_mass >= log_mass[peak] - _WINDOW_NATS)[0]
         first, last = int(keep[0]) - 1, int(keep[-1]) + 1
         a = float(grid[first]) if first >= 0 else self.support_min
         b = float(grid[last]) if last < grid.size else self.support_max

@@ -98,9 +98,16 @@ async def _unavailable(_: Request, exc: Exception) -> JSONResponse:
     return JSONResponse(status_code=503, content={"detail": [entry]}, headers={"Retry-After": "5"})
 
 
+async def _internal_error(_: Request, exc: Exception) -> JSONResponse:
+    # Same shape as every other error; the traceback goes to the server log, not the client.
+    entry = detail_entry([], f"internal error ({type(exc).__name__})", "internal_error")
+    return JSONResponse(status_code=500, content={"detail": [entry]})
+
+
 def install_error_handlers(app: FastAPI) -> None:
     app.add_exception_handler(TailgaugeError, _tailgauge_error)
     app.add_exception_handler(RequestValidationError, _validation_error)
     app.add_exception_handler(StarletteHTTPException, _http_error)
     app.add_exception_handler(ComputationUnavailable, _unavailable)
+    app.add_exception_handler(Exception, _internal_error)
 

@@ -1,0 +1,13 @@
+"""The benchmark runs end to end on a tiny budget (its numbers are not checked here)."""
+
+import json
+
+from bench import run
+
+
+def test_bench_runs_on_a_tiny_budget(capsys):
+    assert run.main(["--quick"]) == 0
+    printed = capsys.readouterr().out
+    assert "Hard regime" in printed
+    data = json.loads((run.OUT / "results.json").read_text())
+    assert len(data["hard_regime"]) == 12

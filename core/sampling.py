@@ -9,14 +9,14 @@ work is split.
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from core.counts import ClaimCount
 from core.portfolio import Portfolio
-from core.severities import Lognormal, Severity
+from core.severities import Severity
 
 # Claims drawn per block are kept near this many floats so memory stays bounded.
 _CLAIMS_PER_BLOCK = 1 << 20
@@ -51,12 +51,11 @@ class LineProposal:
     """How one line is drawn under importance sampling (zeros: the model itself).
 
     count_tilt: s, counts drawn with P(N=k) proportional to p_k e^{s k}.
-    normal_shift: delta, a lognormal claim's underlying normal drawn with mean shifted by delta.
-    claim_tilt: theta, claims drawn from the exponentially tilted law e^{theta y} f(y) / M(theta).
+    claim_tilt: theta, claims drawn from the exponentially tilted law e^{theta y} f(y) / M(theta)
+        (the closed form where the severity has one, else the line's StepwiseTilt).
     """
 
     count_tilt: float = 0.0
-    normal_shift: float = 0.0
     claim_tilt: float = 0.0
 
 
@@ -70,7 +69,8 @@ class Draw:
     line_max: list[np.ndarray]  # -inf where the line had no claim
     line_log_lr: list[np.ndarray]
     line_counts: list[np.ndarray]
-    line_normal_sums: list[np.ndarray | None] = field(default_factory=list)
+    # Per line, the sum over its claims of score(y) when a score function was given.
+    line_scores: list[np.ndarray | None] = field(default_factory=list)
 
 
 def segment_sum(values: np.ndarray, counts: np.ndarray) -> np.ndarray:
@@ -113,22 +113,14 @@ def draw_counts(
 def draw_claims(
     sev: Severity, prop: LineProposal, size: int, rng: np.random.Generator,
     stepwise: StepwiseTilt | None,
-) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
-    """(claims, per-claim log LR or None, underlying normals or None)."""
-    if prop.normal_shift != 0.0 and isinstance(sev, Lognormal):
-        z = rng.standard_normal(size) + prop.normal_shift
-        d = prop.normal_shift
-        return np.exp(sev.mu + sev.sigma * z), -d * z + 0.5 * d * d, z
-    if prop.claim_tilt != 0.0:
-        if stepwise is not None:
-            y, llr = stepwise.sample(size, rng)
-            return y, llr, None
-        y = sev.sample_tilted(prop.claim_tilt, size, rng)
-        return y, -prop.claim_tilt * y + float(sev.cumulant(prop.claim_tilt)), None
-    if isinstance(sev, Lognormal):
-        z = rng.standard_normal(size)
-        return np.exp(sev.mu + sev.sigma * z), None, z
-    return sev.sample(size, rng), None, None
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """(claims, per-claim log LR or None when drawn from the model)."""
+    if prop.claim_tilt == 0.0:
+        return sev.sample(size, rng), None
+    if stepwise is not None:
+        return stepwise.sample(size, rng)
+    y = sev.sample_tilted(prop.claim_tilt, size, rng)
+    return y, -prop.claim_tilt * y + float(sev.cumulant(prop.claim_tilt))
 
 
 def draw_block(
@@ -136,15 +128,19 @@ def draw_block(
     proposals: list[LineProposal] | None = None,
     size_biased: np.ndarray | None = None,
     stepwise: list[StepwiseTilt | None] | None = None,
+    scores: list[Callable[[np.ndarray], np.ndarray] | None] | None = None,
 ) -> Draw:
     """Draw m samples of the portfolio.
 
     size_biased: optional int array (one per sample) naming the line whose count is replaced by
     N* - 1 (size-biased minus one), as the conditional estimators need; -1 for none.
+    scores: optional per-line function of the claims, summed per sample into line_scores
+    (a mixture estimator needs the adapted proposal's ratio at draws it did not make).
     """
     lines = portfolio.lines
     proposals = proposals or [LineProposal()] * len(lines)
     stepwise = stepwise or [None] * len(lines)
+    scores = scores or [None] * len(lines)
     total = np.zeros(m)
     log_lr = np.zeros(m)
     out = Draw(total, log_lr, [], [], [], [], [])
@@ -154,74 +150,130 @@ def draw_block(
         law = line.paid_count
         sb_law = law.size_biased_minus_one() if sb_mask is not None and sb_mask.any() else None
         counts, llr = draw_counts(law, sb_law, sb_mask, prop.count_tilt, m, rng)
-        claims, claim_llr, normals = draw_claims(
+        claims, claim_llr = draw_claims(
             line.paid_severity, prop, int(counts.sum()), rng, stepwise[k]
         )
         sums = segment_sum(claims, counts)
         if claim_llr is not None:
             llr = llr + segment_sum(claim_llr, counts)
+        score = scores[k]
+        out.line_scores.append(
+            None if score is None else segment_sum(score(claims), counts)
+        )
         out.line_sums.append(sums)
         out.line_max.append(segment_max(claims, counts))
         out.line_log_lr.append(llr)
         out.line_counts.append(counts)
-        out.line_normal_sums.append(None if normals is None else segment_sum(normals, counts))
         total += sums
         log_lr += llr
     return out
 
 
+class TiltGrid:
+    """Cells of a severity's support with their probabilities and reference points.
+
+    Cells are equal-width on [lo, hi]; one more cell holds [hi, inf) (or a cap's atom), with
+    reference point hi. Built once per (severity, hi); tilting it by any theta is cheap.
+    """
+
+    def __init__(self, sev: Severity, hi: float, *, cells: int = 1024) -> None:
+        self.sev = sev
+        lo = max(float(sev.support_min), float(sev.ppf(1e-12)))
+        hi = max(float(hi), lo + 1e-9 * max(1.0, abs(lo)))
+        self.edges = np.linspace(lo, hi, cells + 1)
+        sf = np.asarray(sev.sf(self.edges), dtype=float)
+        self.probs = np.append(-np.diff(sf), sf[-1])
+        self.probs[0] += 1.0 - sf[0]
+        self.ref = np.append(0.5 * (self.edges[:-1] + self.edges[1:]), hi)
+        self.edges_sf = np.append(sf, 0.0)
+        self.edges_sf[0] = 1.0
+        with np.errstate(divide="ignore"):
+            self.log_probs = np.log(self.probs)
+
+    @classmethod
+    def for_tilt(cls, sev: Severity, theta: float, *, cells: int = 1024) -> TiltGrid:
+        """A grid wide enough that the theta-tilted law has negligible mass beyond it."""
+        return cls(sev, _tilt_upper(sev, theta), cells=cells)
+
+    def ref_of(self, y: np.ndarray) -> np.ndarray:
+        """Reference point of the cell holding each y (right-closed cells, so a cap's atom
+        stays in the cell it is drawn in). Cells have equal width: no search needed."""
+        lo, hi = self.edges[0], self.edges[-1]
+        width = (hi - lo) / (self.edges.size - 1)
+        cell = np.ceil((np.asarray(y, dtype=float) - lo) / width) - 1.0
+        cell = np.where(y > hi, self.ref.size - 1, np.clip(cell, 0, self.ref.size - 2))
+        return self.ref[cell.astype(np.int64)]
+
+    def tilted_mean_ref(self, theta: float) -> float:
+        """E[ref] under the stepwise tilt by theta."""
+        logw = self.log_probs + theta * self.ref
+        w = np.exp(logw - logw.max())
+        return float(w @ self.ref / w.sum())
+
+
+def _tilt_upper(sev: Severity, theta: float) -> float:
+    """A point beyond which the tilted law has negligible mass (or the cap)."""
+    cap = getattr(sev, "cap", None)
+    if cap is not None:
+        return float(cap)
+    lo = max(float(sev.support_min), float(sev.ppf(1e-12)))
+    hi = max(float(sev.isf(1e-3)), lo + 1.0)
+    # e^{theta y} sf(y) bounds the tilted tail beyond y; stop 40 e-folds below its peak.
+    peak = -math.inf
+    for _ in range(200):
+        level = theta * hi + float(sev.logsf(hi))
+        peak = max(peak, level)
+        if level < peak - 40.0:
+            return hi
+        hi *= 1.25
+    return hi
+
+
 class StepwiseTilt:
     """An exact-likelihood stand-in for an exponential tilt with no closed-form sampler.
 
-    The support is cut into cells; a cell is picked with probability proportional to
-    P(cell) e^{theta m} (m the cell's reference point), and the claim is then drawn from the
-    severity restricted to that cell. The likelihood ratio f/g = W e^{-theta m} is exact for
-    this law, whatever the cell layout; the finer the cells, the closer it is to the true tilt.
+    A cell of the grid is picked with probability proportional to P(cell) e^{theta m} (m the
+    cell's reference point), and the claim is then drawn from the severity restricted to that
+    cell. The likelihood ratio f/g = W e^{-theta m} is exact for this law, whatever the cell
+    layout; the finer the cells, the closer it is to the true tilt. With a grid that stops
+    short of the tail (TiltGrid(sev, hi)) it is a capped tilt e^{theta min(y, hi)}: beyond hi
+    the law keeps the severity's own tail, so a heavy tail can be tilted too.
     """
 
-    def __init__(self, sev: Severity, theta: float, *, cells: int = 1024) -> None:
-        self.sev, self.theta = sev, theta
-        lo = max(float(sev.support_min), float(sev.ppf(1e-12)))
-        hi = self._upper(sev, theta, lo)
-        edges = np.linspace(lo, hi, cells + 1)
-        sf = np.asarray(sev.sf(edges), dtype=float)
-        probs = np.append(-np.diff(sf), sf[-1])  # last cell: [hi, inf) or the atom at a cap
-        probs[0] += 1.0 - sf[0]
-        ref = np.append(0.5 * (edges[:-1] + edges[1:]), hi)
-        with np.errstate(divide="ignore"):
-            logw = np.log(probs) + theta * ref
+    def __init__(self, grid: TiltGrid, theta: float) -> None:
+        self.grid, self.theta = grid, theta
+        logw = grid.log_probs + theta * grid.ref
         shift = logw.max()
         w = np.exp(logw - shift)
         self.log_w = float(np.log(w.sum()) + shift)  # log W, the stepwise cumulant
-        self.pick = np.cumsum(w) / w.sum()
-        self.edges_sf = np.append(sf, 0.0)
-        self.edges_sf[0] = 1.0
-        self.ref = ref
+        self.accept, self.alias = _alias_table(w / w.sum())
 
-    @staticmethod
-    def _upper(sev: Severity, theta: float, lo: float) -> float:
-        """A point beyond which the tilted law has negligible mass (or the cap)."""
-        cap = getattr(sev, "cap", None)
-        if cap is not None:
-            return float(cap)
-        hi = max(float(sev.isf(1e-3)), lo + 1.0)
-        # e^{theta y} sf(y) bounds the tilted tail beyond y; stop 40 e-folds below its peak.
-        peak = -math.inf
-        for _ in range(200):
-            level = theta * hi + float(sev.logsf(hi))
-            peak = max(peak, level)
-            if level < peak - 40.0:
-                return hi
-            hi *= 1.25
-        return hi
+    @classmethod
+    def for_severity(cls, sev: Severity, theta: float) -> StepwiseTilt:
+        return cls(TiltGrid.for_tilt(sev, theta), theta)
 
     def sample(self, size: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
-        cell = np.minimum(np.searchsorted(self.pick, rng.random(size), side="right"),
-                          self.pick.size - 1)
-        top, bottom = self.edges_sf[cell], self.edges_sf[cell + 1]
+        g = self.grid
+        k = self.accept.size
+        cell = np.minimum((rng.random(size) * k).astype(np.int64), k - 1)
+        cell = np.where(rng.random(size) < self.accept[cell], cell, self.alias[cell])
+        top, bottom = g.edges_sf[cell], g.edges_sf[cell + 1]
         u = bottom + (top - bottom) * rng.random(size)
-        y = np.asarray(self.sev.isf(np.clip(u, 1e-300, 1.0)), dtype=float)
-        cap = getattr(self.sev, "cap", None)
-        if cap is not None:
-            y = np.where(cell == self.pick.size - 1, cap, np.minimum(y, cap))
-        return y, self.log_w - self.theta * self.ref[cell]
+        y = np.asarray(g.sev.isf(np.clip(u, 1e-300, 1.0)), dtype=float)
+        return y, self.log_w - self.theta * g.ref[cell]
+
+
+def _alias_table(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Walker's alias method (Vose's construction): O(1) draws from a discrete law."""
+    k = p.size
+    scaled = p * k
+    accept = np.ones(k)
+    alias = np.arange(k)
+    small = [i for i in range(k) if scaled[i] < 1.0]
+    large = [i for i in range(k) if scaled[i] >= 1.0]
+    while small and large:
+        s_i, l_i = small.pop(), large.pop()
+        accept[s_i], alias[s_i] = scaled[s_i], l_i
+        scaled[l_i] -= 1.0 - scaled[s_i]
+        (small if scaled[l_i] < 1.0 else large).append(l_i)
+    return accept, alias

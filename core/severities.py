@@ -16,6 +16,7 @@ PhaseType, and the per-claim layer laws Excess (X - r given X > r) and Capped (m
 from __future__ import annotations
 
 import abc
+import functools
 import math
 import numbers
 from collections.abc import Callable, Sequence
@@ -433,12 +434,19 @@ class Severity(abc.ABC):
         return 0.5 * (lo + hi)
 
     def _grid(self) -> _Floats:
+        return _cached_grid(self)
+
+    def _build_grid(self) -> _Floats:
         """Quantiles from cdf 1e-30 out to sf e^-1000: breakpoints for quadrature."""
         low = self._isf_log(np.log1p(-np.logspace(-30.0, math.log10(0.5), 25)))
         high = self._isf_log(-np.logspace(math.log10(math.log(2.0)), 3.0, 50))
         grid = np.unique(np.concatenate([low, high]))
         lo, hi = self.support_min, self.support_max
         grid = grid[np.isfinite(grid) & (grid > lo) & (grid < hi)]
+        # drop breakpoints that crowd together (quantiles of a bounded law pile up at its top)
+        gaps = np.diff(np.concatenate([grid, [hi]])) if math.isfinite(hi) else None
+        if gaps is not None:
+            grid = grid[gaps > 1e-9 * max(abs(hi), 1e-300)]
         if math.isfinite(lo) and grid.size:
             grid = np.concatenate([lo + (grid[0] - lo) * np.logspace(-12.0, -0.5, 12), grid])
         return grid
@@ -481,6 +489,9 @@ class Severity(abc.ABC):
         return total
 
     def _numeric_tilt(self, theta: float) -> tuple[float, float, float]:
+        return _cached_tilt(self, theta)
+
+    def _compute_tilt(self, theta: float) -> tuple[float, float, float]:
         """(kappa, kappa', kappa'') by quad of e^{theta x} f(x) around its peak (+ the atom).
 
         The integrand is scaled by its peak value and x is centred on the peak, so the three
@@ -530,6 +541,20 @@ class Severity(abc.ABC):
         mean_u = sums[1] / sums[0]
         var_u = max(sums[2] / sums[0] - mean_u**2, 0.0)
         return g_star + math.log(sums[0]), centre + width * mean_u, width**2 * var_u
+
+
+# Laws are immutable and hashable, so the quadrature results can be remembered: root finders
+# for the saddlepoint call the cumulant many times at nearby and repeated points.
+@functools.lru_cache(maxsize=256)
+def _cached_grid(law: Severity) -> _Floats:
+    grid = law._build_grid()
+    grid.setflags(write=False)
+    return grid
+
+
+@functools.lru_cache(maxsize=4096)
+def _cached_tilt(law: Severity, theta: float) -> tuple[float, float, float]:
+    return law._compute_tilt(theta)
 
 
 def _check_probability(name: str, values: _Floats) -> None:
@@ -868,7 +893,8 @@ class Gamma(Severity):
     def _logsf_standard(self, u: _Floats) -> _Floats:
         a = self.shape
         p, q = special.gammainc(a, u), special.gammaincc(a, u)
-        out = np.where(p < 0.5, np.log1p(-p), np.log(np.maximum(q, 1e-320)))
+        with np.errstate(divide="ignore"):
+            out = np.where(p < 0.5, np.log1p(-p), np.log(np.maximum(q, 1e-320)))
         far = q < 1e-280  # gammaincc is about to underflow: continued fraction in log space
         if far.any():
             out[far] = _log_gamma_q_cf(a, u[far])

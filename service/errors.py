@@ -46,7 +46,9 @@ def parameter_loc(parameter: str) -> list[str | int]:
     """'portfolio.lines[0].severity.sigma' -> body, portfolio, lines, 0, severity, sigma."""
     loc: list[str | int] = ["body"]
     for name, index in _PATH_TOKEN.findall(parameter):
-        loc.append(int(index) if index else name)
+        # List positions come as "[3]" or as a bare ".3" segment.
+        position = index or (name if name.isdigit() else "")
+        loc.append(int(position) if position else name)
     return loc
 
 

@@ -13,7 +13,9 @@ from __future__ import annotations
 
 import asyncio
 import multiprocessing
+import os
 import threading
+import time
 from collections.abc import Callable
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
@@ -23,6 +25,8 @@ from typing import Any, Literal
 from core.errors import TailgaugeError
 from service.errors import ComputationUnavailable
 from service.metrics import Metrics
+
+ORPHAN_CHECK_S = 1.0
 
 
 @dataclass(frozen=True)
@@ -43,9 +47,19 @@ def call_engine(fn: Callable[..., Any], args: tuple[Any, ...], kwargs: dict[str,
         return EngineFailure(type(exc), exc.parameter, exc.message)
 
 
-def _warm_up() -> None:
+def _exit_when_orphaned(parent_pid: int) -> None:
+    # A server killed outright (SIGKILL, OOM) cannot stop its workers; they notice instead.
+    while True:
+        time.sleep(ORPHAN_CHECK_S)
+        if os.getppid() != parent_pid:
+            os._exit(0)
+
+
+def _worker_start(parent_pid: int) -> None:
     # Import the engine once per worker process, so the first request does not pay for it.
     import core  # noqa: F401
+
+    threading.Thread(target=_exit_when_orphaned, args=(parent_pid,), daemon=True).start()
 
 
 def _noop() -> None:
@@ -75,16 +89,23 @@ class ComputePool:
                 self._executor.submit(_noop)
 
     def shutdown(self) -> None:
-        if self._executor is not None:
-            self._executor.shutdown(wait=False, cancel_futures=True)
-            self._executor = None
+        executor, self._executor = self._executor, None
+        if executor is None:
+            return
+        # Workers hold nothing worth saving: stop them rather than let interpreter exit wait
+        # for a computation that nobody will read (ProcessPoolExecutor keeps them private).
+        processes = list((getattr(executor, "_processes", None) or {}).values())
+        executor.shutdown(wait=False, cancel_futures=True)
+        for process in processes:
+            process.terminate()
 
     def _new_executor(self) -> Executor:
         if self.kind == "process":
             return ProcessPoolExecutor(
                 max_workers=self.workers,
                 mp_context=multiprocessing.get_context("spawn"),
-                initializer=_warm_up,
+                initializer=_worker_start,
+                initargs=(os.getpid(),),
             )
         return ThreadPoolExecutor(max_workers=self.workers, thread_name_prefix="tailgauge")
 

@@ -61,8 +61,9 @@ def claim_cumulant(sev: Severity, theta: float) -> tuple[float, float]:
     if has_closed_tilt(sev):
         return float(sev.cumulant(theta)), float(sev.cumulant_derivatives(theta)[0])
     h = 1e-5 * max(1.0, abs(theta))
-    up, down = StepwiseTilt(sev, theta + h).log_w, StepwiseTilt(sev, max(theta - h, 0.0)).log_w
-    return StepwiseTilt(sev, theta).log_w, (up - down) / (theta + h - max(theta - h, 0.0))
+    up, down = StepwiseTilt.for_severity(sev, theta + h).log_w, StepwiseTilt.for_severity(
+        sev, max(theta - h, 0.0)).log_w
+    return StepwiseTilt.for_severity(sev, theta).log_w, (up - down) / (theta + h - max(theta - h, 0.0))
 
 
 def kappa(portfolio: Portfolio, theta: float) -> tuple[float, float]:
@@ -96,7 +97,7 @@ def _proposals(portfolio: Portfolio, theta: float):
         sev = line.paid_severity
         step = None
         if theta != 0.0 and not has_closed_tilt(sev):
-            step = StepwiseTilt(sev, theta)
+            step = StepwiseTilt.for_severity(sev, theta)
             ky = step.log_w
         else:
             ky = float(sev.cumulant(theta))

@@ -242,7 +242,7 @@ class PrecisionSpec(RequestModel):
 class PortfolioRequest(RequestModel):
     """Fields shared by every request that computes figures of a portfolio's loss S."""
 
-    portfolio: PortfolioSpec
+    portfolio: PortfolioSpec = Field(description="The portfolio loss model: its lines.")
     method: Method = Field(default="auto", description=METHOD_DESCRIPTION)
     precision: PrecisionSpec = Field(
         default_factory=PrecisionSpec,

@@ -36,7 +36,9 @@ class ExceedanceEstimateOut(BaseModel):
     )
     samples: int = Field(description="Number of samples behind this estimate.")
     hits: int = Field(description="Samples with a non-zero contribution to the estimate.")
-    diagnostics: DiagnosticsOut
+    diagnostics: DiagnosticsOut = Field(
+        description="How far this estimate's own error bar can be trusted."
+    )
 
 
 class ExceedanceResponse(ComputationOut):

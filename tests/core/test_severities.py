@@ -74,19 +74,36 @@ def test_ppf_and_isf_match_scipy(law: Severity, ref) -> None:
 def test_mean_variance_and_moments_match_scipy(law: Severity, ref) -> None:
     assert law.mean == pytest.approx(ref.mean(), rel=1e-10)
     assert law.variance == pytest.approx(ref.var(), rel=1e-9)
-    assert law.moment(3) == pytest.approx(ref.moment(3), rel=1e-9)
+    third = ref.moment(3)
+    if np.isfinite(third):
+        assert law.moment(3) == pytest.approx(third, rel=1e-9)
+    else:  # scipy answers nan or inf where the third moment diverges
+        assert law.moment(3) == math.inf
+
+
+def _limited_moment_by_quad(ref, t: float, k: int) -> float:
+    """E[min(X, t)^k] = int_lo^t x^k dF(x) + t^k sf(t), by tight quadrature of scipy's pdf."""
+    lo = max(ref.support()[0], -60.0)
+    body = _quad(lambda v: v**k * ref.pdf(v), lo, min(t, ref.support()[1]))
+    return body + t**k * float(ref.sf(t))
 
 
 @pytest.mark.parametrize(("law", "ref"), PAIRS, ids=IDS)
 def test_lev_matches_quadrature_of_sf_and_scipy_expect(law: Severity, ref) -> None:
     for t in (0.4, 2.0, 9.0):
-        # E[min(X, t)] = int_0^t sf(x) dx for X >= 0; scipy's expect integrates min(x, t) dF
+        # scipy's expect integrates min(x, t) dF with its default (about 1e-8) tolerance
         expected = ref.expect(lambda v, t=t: np.minimum(v, t))
-        assert law.lev(t) == pytest.approx(expected, rel=1e-8)
-        if law.support_min == 0:
-            assert law.lev(t) == pytest.approx(_quad(ref.sf, 0.0, t), rel=1e-9)
+        assert law.lev(t) == pytest.approx(expected, rel=1e-6)
         expected2 = ref.expect(lambda v, t=t: np.minimum(v, t) ** 2)
-        assert law.lev2(t) == pytest.approx(expected2, rel=1e-8)
+        assert law.lev2(t) == pytest.approx(expected2, rel=1e-6)
+        # tight references: E[min(X, t)] = int_0^t sf(x) dx for X >= 0, and the pdf integrals
+        if law.support_min == 0:
+            assert law.lev(t) == pytest.approx(_quad(ref.sf, 0.0, t), rel=1e-10)
+            assert law.lev2(t) == pytest.approx(
+                2.0 * _quad(lambda v: v * ref.sf(v), 0.0, t), rel=1e-10
+            )
+        assert law.lev(t) == pytest.approx(_limited_moment_by_quad(ref, t, 1), rel=1e-9)
+        assert law.lev2(t) == pytest.approx(_limited_moment_by_quad(ref, t, 2), rel=1e-9)
 
 
 def test_lev_is_t_below_the_support_and_the_mean_at_infinity() -> None:
@@ -178,7 +195,7 @@ def test_gamma_logsf_with_fractional_shape_matches_asymptotic_series() -> None:
 
 @pytest.mark.parametrize(("law", "ref"), PAIRS, ids=IDS)
 def test_isf_log_inverts_logsf_at_minus_700_and_beyond(law: Severity, ref) -> None:
-    log_q = np.array([-1e-12, -0.5, -30.0, -700.0, -5000.0])
+    log_q = np.array([-1e-12, -0.5, -30.0, -700.0, -1500.0])
     x = law.isf_log(log_q)
     if math.isinf(law.support_max):
         np.testing.assert_allclose(law.logsf(x), log_q, rtol=1e-9)
@@ -404,8 +421,8 @@ def test_excess_over_a_far_retention_samples_in_log_space() -> None:
 def test_capped_law_has_the_limited_moments_and_an_atom_at_the_cap() -> None:
     base, cap = stats.lognorm(s=1.0), 3.0
     law = Capped(base=Lognormal(mu=0.0, sigma=1.0), cap=cap)
-    assert law.mean == pytest.approx(base.expect(lambda v: np.minimum(v, cap)), rel=1e-9)
-    second = base.expect(lambda v: np.minimum(v, cap) ** 2)
+    assert law.mean == pytest.approx(_limited_moment_by_quad(base, cap, 1), rel=1e-10)
+    second = _limited_moment_by_quad(base, cap, 2)
     assert law.variance == pytest.approx(second - law.mean**2, rel=1e-8)
     assert law.atom == pytest.approx(base.sf(cap), rel=1e-12)
     np.testing.assert_allclose(law.cdf([0.5, 2.9]), base.cdf([0.5, 2.9]), rtol=1e-12)

@@ -98,12 +98,15 @@ def test_seed_is_drawn_json_safe_and_replays(client, small_request):
 
 
 def test_engine_error_is_a_422_at_the_field(client, small_request):
-    # The engine has no recursion yet and says so with a MethodError naming "method".
-    response = client.post("/v1/exceedance", json=small_request(method="recursion"))
+    # Tilting needs a moment generating function; the engine refuses a Pareto line with a
+    # MethodError naming "method".
+    body = small_request(method="tilted")
+    body["portfolio"]["lines"][0]["severity"] = {"family": "pareto", "alpha": 1.5, "scale": 1.0}
+    response = client.post("/v1/exceedance", json=body)
     assert response.status_code == 422
     detail = response.json()["detail"]
     assert [(d["loc"], d["type"]) for d in detail] == [(["body", "method"], "method_error")]
-    assert detail[0]["msg"]
+    assert "light-tailed" in detail[0]["msg"]
 
 
 def _strict_json(text: str) -> Any:

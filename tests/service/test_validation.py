@@ -53,7 +53,8 @@ def test_binomial_probability_outside_unit_interval_is_refused(client, small_req
 def test_nan_and_infinity_literals_are_refused(client, small_request):
     text = json.dumps(small_request())
     for literal in ("NaN", "Infinity", "-Infinity"):
-        response = _post_text(client, text.replace('"thresholds": [5.0', f'"thresholds": [{literal}'))
+        bad = text.replace('"thresholds": [5.0', f'"thresholds": [{literal}')
+        response = _post_text(client, bad)
         assert response.status_code == 422, literal
         assert response.json() == _error(
             ["body", "thresholds", 0], "Input should be a finite number", "finite_number"

@@ -14,7 +14,7 @@ import math
 import numpy as np
 from scipy.optimize import brentq
 
-from core.errors import MethodError
+from core.errors import MethodError, ParameterError
 from core.estimators.base import Group, work_per_sample
 from core.portfolio import Portfolio
 from core.sampling import LineProposal, StepwiseTilt, draw_block
@@ -77,18 +77,32 @@ def kappa(portfolio: Portfolio, theta: float) -> tuple[float, float]:
     return value, slope
 
 
+def _slope(portfolio: Portfolio, theta: float) -> float:
+    """kappa_S'(theta), +inf where the tilt overflows (beyond any useful theta)."""
+    try:
+        with np.errstate(over="ignore"):
+            slope = kappa(portfolio, theta)[1]
+    except (OverflowError, ValueError, ParameterError):
+        return math.inf
+    return slope if math.isfinite(slope) else math.inf
+
+
 def saddlepoint(portfolio: Portfolio, x: float) -> float:
     """theta >= 0 with kappa_S'(theta) = x (0 when x is below the mean)."""
     if x <= portfolio.mean:
         return 0.0
-    hi = theta_bound(portfolio)
-    hi = hi * (1 - 1e-9) if math.isfinite(hi) else 1.0
-    if math.isinf(theta_bound(portfolio)):
-        while kappa(portfolio, hi)[1] < x and hi < 1e8:
+    bound = theta_bound(portfolio)
+    if math.isfinite(bound):
+        hi = bound * (1 - 1e-9)
+    else:
+        # Start at the scale of S and double: theta * sd(S) of order one is a mild tilt.
+        hi = 1.0 / max(portfolio.std_dev, 1e-300)
+        while _slope(portfolio, hi) < x and hi < 1e300:
             hi *= 2.0
-    if kappa(portfolio, hi)[1] < x:
+    if _slope(portfolio, hi) < x:
         return hi
-    return float(brentq(lambda t: kappa(portfolio, t)[1] - x, 0.0, hi, xtol=1e-12, rtol=1e-12))
+    return float(brentq(lambda t: min(_slope(portfolio, t), 1e300) - x, 0.0, hi,
+                        xtol=1e-14 * hi, rtol=1e-12))
 
 
 def _proposals(portfolio: Portfolio, theta: float):

@@ -94,7 +94,7 @@ def _body(seed: int) -> dict:
         "portfolio": {"lines": [{"count": {"kind": "poisson", "mean": 20.0},
                                  "severity": {"family": "exponential", "mean": 10.0}}]},
         "thresholds": THRESHOLDS,
-        "precision": {"samples": 300_000},
+        "precision": {"samples": 150_000},
         "seed": seed,
     }
 

@@ -24,7 +24,9 @@ LARGE_SHARE = 0.1
 
 def draw_seed() -> int:
     # 53 bits so that JSON clients that hold numbers as doubles round-trip it exactly.
-    return int(np.random.SeedSequence().entropy) % (1 << 53)
+    entropy = np.random.SeedSequence().entropy
+    assert isinstance(entropy, int)
+    return entropy % (1 << 53)
 
 
 def check_thresholds(thresholds: Sequence[float]) -> np.ndarray:

@@ -4,15 +4,14 @@ Each paid claim law is put on a lattice twice (core.discretise): rounded down (a
 smaller claim, so a lower bound for every P(S > x)) and rounded up (an upper bound). Each line's
 aggregate follows from its count law: the n-fold convolution by repeated squaring for fixed
 counts and for binomial counts (a binomial sum is the trials-fold sum of "a claim with the given
-probability, else nothing"), and the Panjer recursion of the (a, b, 0) class for Poisson and
-negative binomial counts. Lines are combined by convolution.
+probability, else nothing"); Panjer's recursion of the (a, b, 0) class for Poisson and negative
+binomial counts, or, for tails below 1e-6, the count series sum_n P(N = n) X^{*n}. Lines are
+combined by convolution. All of it adds non-negative terms only.
 
-Every step adds non-negative numbers only, so each lattice mass keeps its relative accuracy
-however small it is; convolutions are done directly (no FFT, whose round-off is a fixed fraction
-of the total mass and would swamp a tail of 1e-20). The direct convolution is written as blocked
-matrix products so that BLAS does the O(L^2) work. A threshold is always the top lattice point
-and the mass beyond it is carried as its own number, so a tail probability is read off as that
-mass, never as 1 - cdf.
+A threshold is always the top lattice point and the mass beyond it is carried as its own number,
+so a tail probability is read off as that mass. The one exception is Panjer's recursion, which
+yields P(S = k) for k <= K only: its mass beyond is 1 - sum (round-off ~1e-16), used only while
+the tail is above 1e-6, and the bounds are widened by 1e-13 to cover it.
 
 The best estimate rounds claims to the nearest lattice point (error of order h^2) at spans h, 2h
 and 4h and extrapolates to h = 0 (Romberg), then is kept within the bounds.
@@ -26,13 +25,24 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 from numpy.typing import NDArray
 from scipy import stats
 from scipy.linalg import solve_triangular
 
 from core.counts import Binomial, ClaimCount, Fixed, NegativeBinomial, Poisson
-from core.discretise import TINY, Grid, Lattice, Rounding, discretise, flush, require_nonnegative
+from core.discretise import (
+    TINY,
+    Grid,
+    Lattice,
+    Rounding,
+    convolution_power,
+    convolve,
+    convolve_window,
+    discretise,
+    flush,
+    point_mass,
+    require_nonnegative,
+)
 from core.errors import LimitError, ParameterError
 from core.portfolio import Line, Portfolio
 from core.severities import Severity
@@ -44,7 +54,6 @@ __all__ = [
     "aggregate_bounds",
     "compound",
     "convolution_power",
-    "convolve",
     "exceedance_bounds",
     "iid_sum_bounds",
 ]
@@ -52,9 +61,7 @@ __all__ = [
 _Floats = NDArray[np.float64]
 
 DEFAULT_CELLS = 8192
-_BLOCK = 256  # columns of the blocked convolution: long enough for BLAS to run at full speed
-_SMALL = 1 << 18  # below this many multiply-adds numpy.convolve is quicker than the blocks
-_LEAF = 64  # the Panjer recursion solves blocks this short term by term
+_LEAF = 64  # the Panjer recursion solves ranges this short as one triangular system
 # log P(S = 0) below this would underflow the recursion's start; such a count is split into
 # equal independent parts (Poisson and negative binomial laws are infinitely divisible).
 _LOG_START_MIN = -600.0
@@ -64,95 +71,7 @@ _COMPLEMENT_SLACK = 1e-13
 _COMPLEMENT_MIN = 1e-6
 _SERIES_TAIL = 1e-40  # P(N > M) left out of the count series (kept in the upper bound)
 _SERIES_MAX = 1 << 16
-
-
-# ------------------------------------------------------------------------ direct convolution
-
-
-def _convolve_window(x: _Floats, y: _Floats, start: int, stop: int) -> _Floats:
-    """c[t] = sum_i x[i] y[t - i] for start <= t < stop, by direct summation.
-
-    x is cut into blocks of _BLOCK; block q's contribution to c[t + q B] is row t of
-    W @ R[:, q], where W[t, s] = y[t + s - B + 1] is a sliding window (Hankel) view of y and
-    R[:, q] is block q reversed. Rows are taken in chunks, and each chunk multiplies only the
-    blocks that reach the output window, so the work is (stop - start) * len(x) multiply-adds.
-    """
-    nx, ny = x.size, y.size
-    stop = min(stop, nx + ny - 1)
-    out = np.zeros(max(stop - start, 0))
-    if stop <= start or nx == 0 or ny == 0:
-        return out
-    if nx * (stop - start) <= _SMALL or nx < 2 * _BLOCK or ny < 2 * _BLOCK:
-        lo = max(0, start - nx + 1)
-        full = np.convolve(x, y[lo:stop])
-        return np.asarray(full[start - lo : stop - lo], dtype=np.float64)
-    b = _BLOCK
-    m = -(-nx // b)
-    blocks = np.zeros(m * b)
-    blocks[:nx] = x
-    rev = np.ascontiguousarray(blocks.reshape(m, b)[:, ::-1].T)  # (B, m)
-    row_lo, row_hi = max(0, start - (m - 1) * b), min(stop, ny + b - 1)
-    padded = np.zeros(max(row_hi, ny) + 2 * b)
-    padded[b - 1 : b - 1 + ny] = y
-    window = sliding_window_view(padded, b)
-    chunk = int(np.clip((stop - start) // 4, b, 4096))
-    for r0 in range(row_lo, row_hi, chunk):
-        r1 = min(r0 + chunk, row_hi)
-        q_lo = max(0, -(-(start - r1 + 1) // b))
-        q_hi = min(m - 1, (stop - 1 - r0) // b)
-        if q_lo > q_hi:
-            continue
-        prod = np.ascontiguousarray(window[r0:r1]) @ rev[:, q_lo : q_hi + 1]
-        for q in range(q_lo, q_hi + 1):
-            t_lo, t_hi = max(r0, start - q * b), min(r1, stop - q * b)
-            if t_hi > t_lo:
-                out[t_lo + q * b - start : t_hi + q * b - start] += prod[
-                    t_lo - r0 : t_hi - r0, q - q_lo
-                ]
-    return out
-
-
-def _check_same(a: Lattice, b: Lattice) -> None:
-    if a.cells != b.cells or a.rounding != b.rounding:
-        raise ParameterError(
-            "lattice", "laws must share the grid and the rounding to be convolved"
-        )
-
-
-def convolve(a: Lattice, b: Lattice) -> Lattice:
-    """The law of the sum of independent Y_a + Y_b on the same grid, mass beyond the top kept.
-
-    P(sum > K) = P(Y_a > K) + sum_{i <= K} P(Y_a = i) P(Y_b > K - i): claims are >= 0, so a
-    part already beyond the top keeps the sum there; all terms are positive. (Written for
-    measures of any total mass, as the count series adds partial sums.)
-    """
-    _check_same(a, b)
-    k = a.cells
-    pmf = _convolve_window(a.pmf, b.pmf, 0, k + 1)
-    b_mass = float(np.sum(b.pmf)) + b.beyond
-    beyond = a.beyond * b_mass + float(np.dot(a.pmf, b.survival()[::-1]))
-    return flush(Lattice(pmf=pmf, beyond=min(beyond, 1.0), rounding=a.rounding))
-
-
-def _point_mass(like: Lattice, *, at_zero: float = 1.0) -> Lattice:
-    pmf = np.zeros(like.cells + 1)
-    pmf[0] = at_zero
-    return Lattice(pmf=pmf, beyond=0.0, rounding=like.rounding)
-
-
-def convolution_power(base: Lattice, n: int) -> Lattice:
-    """The law of the sum of n independent copies of `base`, by repeated squaring."""
-    if n < 0:
-        raise ParameterError("n", f"must be >= 0, got {n!r}")
-    result: Lattice | None = None
-    power = base
-    while n:
-        if n & 1:
-            result = power if result is None else convolve(result, power)
-        n >>= 1
-        if n:
-            power = convolve(power, power)
-    return _point_mass(base) if result is None else result
+_WORK_MAX = 1e12  # multiply-adds allowed for one count series (about a minute)
 
 
 # ------------------------------------------------------------------------ Panjer recursion
@@ -199,9 +118,9 @@ def _panjer(f: _Floats, a: float, b: float, log_start: float) -> _Floats:
         mid = (lo + hi) // 2
         solve(lo, mid)
         span = hi - lo
-        acc_ab[mid:hi] += _convolve_window(g[lo:mid], jf[:span], mid - lo, span)
+        acc_ab[mid:hi] += convolve_window(g[lo:mid], jf[:span], mid - lo, span)
         if a != 0.0:
-            acc_a[mid:hi] += _convolve_window(k_all[lo:mid] * g[lo:mid], f[:span], mid - lo, span)
+            acc_a[mid:hi] += convolve_window(k_all[lo:mid] * g[lo:mid], f[:span], mid - lo, span)
         solve(mid, hi)
 
     solve(0, n)
@@ -285,13 +204,29 @@ def _series_length(count: ClaimCount) -> int:
 
 
 def _combine(weights: _Floats, laws: Sequence[Lattice]) -> Lattice:
+    """sum_i weights[i] laws[i] (weights may be fewer than laws)."""
     pmf = np.zeros(laws[0].cells + 1)
     beyond = 0.0
-    for w, law in zip(weights, laws, strict=True):
+    for w, law in zip(weights, laws[: weights.size], strict=True):
         if w > 0.0:
             pmf += w * law.pmf
             beyond += w * law.beyond
     return Lattice(pmf=pmf, beyond=beyond, rounding=laws[0].rounding)
+
+
+def _add(a: Lattice, b: Lattice) -> Lattice:
+    return Lattice(pmf=a.pmf + b.pmf, beyond=a.beyond + b.beyond, rounding=a.rounding)
+
+
+def _check_series_work(count: ClaimCount, convolutions: int, cells: int) -> None:
+    work = convolutions * (cells + 1) ** 2 / 2
+    if work > _WORK_MAX:
+        raise LimitError(
+            "grid",
+            f"the exact tail for {count!r} needs {convolutions} convolutions of {cells + 1} "
+            f"cells ({work:.2g} multiply-adds, limit {_WORK_MAX:.2g}); use fewer cells or a "
+            "Monte Carlo method",
+        )
 
 
 def _count_series(claim: Lattice, count: ClaimCount) -> Lattice:
@@ -299,28 +234,24 @@ def _count_series(claim: Lattice, count: ClaimCount) -> Lattice:
     an upper bound (dropped otherwise): exact in the far tail, positive terms only.
 
     The polynomial in the claim law is evaluated by Paterson and Stockmeyer's baby-step
-    giant-step scheme: powers up to s - 1 ~ sqrt(M), then Horner in claim^{*s}, about 2 sqrt(M)
-    convolutions instead of M.
+    giant-step scheme: the powers 0 .. s-1 with s ~ sqrt(M + 1), then Horner's rule in
+    claim^{*s}; about 2 sqrt(M) convolutions instead of M.
     """
     m = _series_length(count)
     weights = np.asarray(count.pmf(np.arange(m + 1)), dtype=np.float64)
     s = max(1, math.isqrt(m + 1))
-    powers = [_point_mass(claim), claim]
-    while len(powers) < s:
-        powers.append(convolve(powers[-1], claim))
-    giant = convolve(powers[s - 1], claim) if s > 1 else claim
-    powers = powers[:s]
-    blocks = [_combine(weights[j : j + s], powers[: len(weights[j : j + s])])
-              for j in range(0, m + 1, s)]
-    total = blocks[-1]
-    for block in reversed(blocks[:-1]):
-        step = convolve(giant, total)
-        total = Lattice(pmf=step.pmf + block.pmf, beyond=step.beyond + block.beyond,
-                        rounding=step.rounding)
+    _check_series_work(count, s + (m + 1) // s, claim.cells)
+    powers = [point_mass(claim)]
+    while len(powers) <= s:  # one more than needed: the last one is the giant step
+        powers.append(convolve(powers[-1], claim) if len(powers) > 1 else claim)
+    giant = powers.pop()
+    blocks = [_combine(weights[j : j + s], powers) for j in range(0, m + 1, s)]
+    total = blocks.pop()
+    for block in reversed(blocks):
+        total = _add(convolve(giant, total), block)
     if claim.rounding == "up":
         rest = float(_count_tail(count).sf(m))
-        total = Lattice(pmf=total.pmf, beyond=min(1.0, total.beyond + rest),
-                        rounding=total.rounding)
+        total = Lattice(pmf=total.pmf, beyond=min(1.0, total.beyond + rest), rounding="up")
     return flush(total)
 
 
@@ -436,17 +367,17 @@ class AggregateBounds:
         # upper bound at the grid point below (exactly at a point both are that point).
         ratio = x / h
         near = round(ratio)
-        on_point = abs(ratio - near) <= 1e-9 * max(1.0, ratio)
+        on_point = abs(ratio - near) <= 1e-12 * max(1.0, ratio)
         above = near if on_point else math.ceil(ratio)
         below = near if on_point else math.floor(ratio)
         return self.lower.exceedance(min(above, cells)), self.upper.exceedance(max(below, 0))
 
 
-def _check_cells(cells: int | None, max_cells: int) -> int:
+def _check_cells(cells: int | None, max_cells: int, multiple: int = 1) -> int:
     value = DEFAULT_CELLS if cells is None else cells
     if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 8:
         raise ParameterError("cells", f"must be an integer >= 8, got {cells!r}")
-    value = -(-int(value) // 4) * 4  # the estimate also uses spans 2h and 4h
+    value = -(-int(value) // multiple) * multiple
     if value > max_cells:
         raise LimitError(
             "grid",
@@ -456,9 +387,11 @@ def _check_cells(cells: int | None, max_cells: int) -> int:
     return value
 
 
-def aggregate_bounds(portfolio: Portfolio, top: float, cells: int) -> AggregateBounds:
+def aggregate_bounds(
+    portfolio: Portfolio, top: float, cells: int | None = None, *, max_cells: int = 200_000
+) -> AggregateBounds:
     """Lower and upper laws of S on the grid of `cells` cells ending exactly at `top`."""
-    grid = Grid.with_top(top=top, cells=_check_cells(cells, max(cells, 8)))
+    grid = Grid.with_top(top=top, cells=_check_cells(cells, max_cells))
     return AggregateBounds(
         grid=grid,
         lower=aggregate(portfolio, grid, "down"),
@@ -505,7 +438,7 @@ def exceedance_bounds(
     point rounds claims to the nearest point at spans h, 2h and 4h, extrapolates to h = 0 and is
     kept within the bounds.
     """
-    n_cells = _check_cells(cells, max_cells)
+    n_cells = _check_cells(cells, max_cells, multiple=4)  # the estimate also uses 2h and 4h
     _check_portfolio(portfolio)
     out: list[tuple[float, float, float]] = []
     for i, x in enumerate(thresholds):

@@ -61,9 +61,10 @@ def claim_cumulant(sev: Severity, theta: float) -> tuple[float, float]:
     if has_closed_tilt(sev):
         return float(sev.cumulant(theta)), float(sev.cumulant_derivatives(theta)[0])
     h = 1e-5 * max(1.0, abs(theta))
-    up, down = StepwiseTilt.for_severity(sev, theta + h).log_w, StepwiseTilt.for_severity(
-        sev, max(theta - h, 0.0)).log_w
-    return StepwiseTilt.for_severity(sev, theta).log_w, (up - down) / (theta + h - max(theta - h, 0.0))
+    low = max(theta - h, 0.0)
+    up = StepwiseTilt.for_severity(sev, theta + h).log_w
+    down = StepwiseTilt.for_severity(sev, low).log_w
+    return StepwiseTilt.for_severity(sev, theta).log_w, (up - down) / (theta + h - low)
 
 
 def kappa(portfolio: Portfolio, theta: float) -> tuple[float, float]:

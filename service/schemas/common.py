@@ -16,10 +16,17 @@ MAX_JSON_SAFE_INT = 2**53 - 1
 # Fewer samples than this give no usable error bar; the engine refuses them too.
 MIN_SAMPLES = 100
 
+# Hard ranges that keep every model inside double precision (means, variances and tilts of
+# the engine must not overflow). They are far beyond any real portfolio.
+MONEY_MAX = 1e18
+COUNT_MAX = 10**9
+
 Finite = Annotated[float, Field(strict=True, allow_inf_nan=False)]
 Positive = Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0)]
-NonNegative = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=0)]
-Count = Annotated[int, Field(strict=True, ge=0)]
+Money = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-MONEY_MAX, le=MONEY_MAX)]
+PositiveMoney = Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, le=MONEY_MAX)]
+NonNegativeMoney = Annotated[float, Field(strict=True, allow_inf_nan=False, ge=0, le=MONEY_MAX)]
+ClaimMean = Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, le=COUNT_MAX)]
 
 
 class RequestModel(BaseModel):
@@ -33,21 +40,24 @@ class RequestModel(BaseModel):
 
 class FixedCount(RequestModel):
     kind: Literal["fixed"] = Field(description="A fixed number of claims per period.")
-    n: Count = Field(description="Number of claims in every period (integer >= 0).")
+    n: Annotated[int, Field(strict=True, ge=0, le=COUNT_MAX)] = Field(
+        description="Number of claims in every period (integer, 0 .. 10^9)."
+    )
 
 
 class PoissonCount(RequestModel):
     kind: Literal["poisson"] = Field(description="Poisson number of claims per period.")
-    mean: Positive = Field(description="Expected number of claims per period (> 0).")
+    mean: ClaimMean = Field(description="Expected number of claims per period (0 < mean <= 10^9).")
 
 
 class NegativeBinomialCount(RequestModel):
     kind: Literal["negative_binomial"] = Field(
         description="Negative binomial number of claims per period (over-dispersed Poisson)."
     )
-    mean: Positive = Field(description="Expected number of claims per period (> 0).")
-    dispersion: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=1)] = Field(
-        description="Variance-to-mean ratio of the claim count (> 1; 1 would be Poisson)."
+    mean: ClaimMean = Field(description="Expected number of claims per period (0 < mean <= 10^9).")
+    dispersion: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=1, le=1e6)] = Field(
+        description="Variance-to-mean ratio of the claim count (1 < dispersion <= 10^6; 1 "
+        "would be Poisson)."
     )
 
 
@@ -55,8 +65,8 @@ class BinomialCount(RequestModel):
     kind: Literal["binomial"] = Field(
         description="Binomial number of claims per period (e.g. a fixed set of risks)."
     )
-    trials: Annotated[int, Field(strict=True, ge=1)] = Field(
-        description="Number of independent risks that can each claim once (integer >= 1)."
+    trials: Annotated[int, Field(strict=True, ge=1, le=COUNT_MAX)] = Field(
+        description="Number of independent risks that can each claim once (integer, 1 .. 10^9)."
     )
     probability: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, le=1)] = Field(
         description="Probability that a risk claims in the period, in (0, 1]."
@@ -74,45 +84,54 @@ ClaimCount = Annotated[
 
 class LognormalSeverity(RequestModel):
     family: Literal["lognormal"] = Field(description="Lognormal claim size: log X ~ N(mu, sigma).")
-    mu: Finite = Field(description="Mean of log claim size (log money units).")
-    sigma: Positive = Field(description="Standard deviation of log claim size (> 0).")
+    mu: Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-50, le=50)] = Field(
+        description="Mean of log claim size (log money units, -50 .. 50)."
+    )
+    sigma: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, le=10)] = Field(
+        description="Standard deviation of log claim size (0 < sigma <= 10)."
+    )
 
 
 class ParetoSeverity(RequestModel):
     family: Literal["pareto"] = Field(
         description="Pareto (Lomax) claim size with survival (1 + x/scale)^-alpha, x > 0."
     )
-    alpha: Positive = Field(description="Tail index (> 0); the mean is finite only if > 1.")
-    scale: Positive = Field(description="Scale in money units (> 0).")
+    alpha: Annotated[float, Field(strict=True, allow_inf_nan=False, ge=0.01, le=1000)] = Field(
+        description="Tail index (0.01 .. 1000); the mean is finite only above 1, the variance "
+        "only above 2."
+    )
+    scale: PositiveMoney = Field(description="Scale in money units (0 < scale <= 10^18).")
 
 
 class WeibullSeverity(RequestModel):
     family: Literal["weibull"] = Field(
         description="Weibull claim size with survival exp(-(x/scale)^shape)."
     )
-    shape: Positive = Field(
-        description="Shape (> 0); below 1 the tail is heavier than exponential."
+    shape: Annotated[float, Field(strict=True, allow_inf_nan=False, ge=0.01, le=100)] = Field(
+        description="Shape (0.01 .. 100); below 1 the tail is heavier than exponential."
     )
-    scale: Positive = Field(description="Scale in money units (> 0).")
+    scale: PositiveMoney = Field(description="Scale in money units (0 < scale <= 10^18).")
 
 
 class GammaSeverity(RequestModel):
     family: Literal["gamma"] = Field(description="Gamma claim size; mean = shape * scale.")
-    shape: Positive = Field(description="Shape (> 0).")
-    scale: Positive = Field(description="Scale in money units (> 0).")
+    shape: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, le=1e6)] = Field(
+        description="Shape (0 < shape <= 10^6)."
+    )
+    scale: PositiveMoney = Field(description="Scale in money units (0 < scale <= 10^18).")
 
 
 class ExponentialSeverity(RequestModel):
     family: Literal["exponential"] = Field(description="Exponential claim size.")
-    mean: Positive = Field(description="Mean claim size in money units (> 0).")
+    mean: PositiveMoney = Field(description="Mean claim size in money units (0 < mean <= 10^18).")
 
 
 class NormalSeverity(RequestModel):
     family: Literal["normal"] = Field(
         description="Normal claim size (can be negative: for net amounts such as P&L)."
     )
-    mean: Finite = Field(description="Mean claim size in money units.")
-    sd: Positive = Field(description="Standard deviation in money units (> 0).")
+    mean: Money = Field(description="Mean claim size in money units (|mean| <= 10^18).")
+    sd: PositiveMoney = Field(description="Standard deviation in money units (0 < sd <= 10^18).")
 
 
 class GeneralizedParetoSeverity(RequestModel):
@@ -120,8 +139,11 @@ class GeneralizedParetoSeverity(RequestModel):
         description="Generalized Pareto claim size with survival (1 + xi*x/scale)^(-1/xi); "
         "exponential at xi = 0, bounded by scale/(-xi) when xi < 0."
     )
-    xi: Finite = Field(description="Shape (tail index); > 0 is heavy-tailed.")
-    scale: Positive = Field(description="Scale in money units (> 0).")
+    xi: Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-10, le=10)] = Field(
+        description="Shape (tail index, -10 .. 10); above 0 heavy-tailed, the mean is finite "
+        "only below 1."
+    )
+    scale: PositiveMoney = Field(description="Scale in money units (0 < scale <= 10^18).")
 
 
 Severity = Annotated[
@@ -152,14 +174,16 @@ class LineSpec(RequestModel):
     )
     count: ClaimCount
     severity: Severity
-    retention: NonNegative | None = Field(
+    retention: NonNegativeMoney | None = Field(
         default=None,
-        description="Per-claim retention (deductible) in money units (>= 0): each claim pays "
+        description="Per-claim retention (deductible) in money units (0 .. 10^18): each claim "
+        "pays "
         "min(max(X - retention, 0), limit). Absent = no layer below: claims are paid as "
         "drawn (so a normal claim may be negative); 0 floors claims at zero.",
     )
-    limit: Positive | None = Field(
-        default=None, description="Per-claim limit in money units (> 0); null = unlimited."
+    limit: PositiveMoney | None = Field(
+        default=None,
+        description="Per-claim limit in money units (0 < limit <= 10^18); null = unlimited.",
     )
 
     @model_validator(mode="after")

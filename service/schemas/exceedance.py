@@ -4,13 +4,13 @@ from __future__ import annotations
 
 from pydantic import BaseModel, Field
 
-from service.schemas.common import ComputationOut, DiagnosticsOut, Finite, PortfolioRequest
+from service.schemas.common import ComputationOut, DiagnosticsOut, Money, PortfolioRequest
 
 
 class ExceedanceRequest(PortfolioRequest):
-    thresholds: list[Finite] = Field(
+    thresholds: list[Money] = Field(
         min_length=1,
-        description="Loss thresholds x in money units; each gets an estimate of the "
+        description="Loss thresholds x in money units (|x| <= 10^18); each gets an estimate of the "
         "exceedance probability P(S > x). The server caps how many one request may hold.",
     )
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -75,8 +76,10 @@ def _worst_relative_error(stats: ContributionStats) -> float:
 def run_group(
     group: Group, block: int, precision: Precision, seed: int, group_id: int,
     deadline: float | None,
+    error_of: Callable[[ContributionStats], float] = _worst_relative_error,
 ) -> GroupRun:
-    """Draw blocks of one group until its stopping rule fires."""
+    """Draw blocks of one group until its stopping rule fires; `error_of` gives the figure
+    the relative-error target applies to (by default the worst estimate's)."""
     parts: list[ContributionStats] = []
     done, next_check, index = 0, precision.minimum, 0
     cap = precision.cap
@@ -92,7 +95,7 @@ def run_group(
         parts = [stats]
         if target is None:
             return GroupRun(stats, done, "samples")
-        worst = _worst_relative_error(stats)
+        worst = error_of(stats)
         if worst <= target:
             return GroupRun(stats, done, "relative_error")
         if done >= cap:

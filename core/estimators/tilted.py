@@ -21,7 +21,7 @@ from core.sampling import LineProposal, StepwiseTilt, draw_block
 from core.severities import Severity
 
 
-def _check_light(portfolio: Portfolio) -> None:
+def check_light(portfolio: Portfolio) -> None:
     for k, line in enumerate(portfolio.lines):
         if line.paid_severity.tail != "light":
             raise MethodError(
@@ -122,7 +122,7 @@ def _proposals(portfolio: Portfolio, theta: float):
 
 
 def plan(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
-    _check_light(portfolio)
+    check_light(portfolio)
     groups = []
     for i, x in enumerate(np.asarray(thresholds, dtype=float)):
         theta = saddlepoint(portfolio, float(x))

@@ -76,6 +76,21 @@ def test_string_where_a_number_belongs_is_refused_not_coerced(client, small_requ
     )
 
 
+def test_parameters_beyond_double_precision_ranges_are_refused(client, small_request):
+    body = small_request()
+    line = body["portfolio"]["lines"][0]
+    line["severity"]["mu"] = 1e300  # exp(mu) would overflow
+    line["count"] = {"kind": "fixed", "n": 10**400}
+    response = _post_json(client, body)
+    assert response.status_code == 422
+    assert response.json() == {"detail": [
+        {"loc": [*LINE0, "count", "fixed", "n"],
+         "msg": "Input should be less than or equal to 1000000000", "type": "less_than_equal"},
+        {"loc": [*LINE0, "severity", "lognormal", "mu"],
+         "msg": "Input should be less than or equal to 50", "type": "less_than_equal"},
+    ]}
+
+
 def test_fractional_claim_count_is_refused(client, small_request):
     body = small_request()
     body["portfolio"]["lines"][0]["count"] = {"kind": "fixed", "n": 2.5}

@@ -180,6 +180,44 @@ def diagnostics_flags(samples: int, seeds: int) -> list[list]:
     return rows
 
 
+def risk_measures(samples: int) -> list[list]:
+    from core.measures import tail_estimates
+
+    rows = []
+    books = [
+        ("Poisson(5) lognormal(0,1.5)", single(Poisson(mean=5.0), Lognormal(mu=0.0, sigma=1.5))),
+        ("lognormal(0,1) n=10", single(Fixed(n=10), Lognormal(mu=0.0, sigma=1.0))),
+        ("gamma(2,1) n=20", single(Fixed(n=20), Gamma(shape=2.0, scale=1.0))),
+    ]
+    for label, port in books:
+        res = tail_estimates(port, levels=[0.995, 0.999, 0.9999],
+                             precision=Precision(samples=samples), seed=1)
+        for m in res.measures:
+            rows.append([label, res.method, m.level, m.var.value,
+                         (m.var.ci_high - m.var.ci_low) / 2 / m.var.value, m.tvar.value,
+                         (m.tvar.ci_high - m.tvar.ci_low) / 2 / m.tvar.value])
+    return rows
+
+
+def level_cost(samples: int) -> list[list]:
+    from core.measures import tail_estimates
+
+    port = single(Poisson(mean=5.0), Lognormal(mu=0.0, sigma=1.5))
+    rows = []
+    base = None
+    for levels in ([0.999], list(np.linspace(0.99, 0.9999, 10))):
+        for method in ("conditional", "auto"):
+            t = time.perf_counter()
+            tail_estimates(port, levels=levels, method=method,
+                           precision=Precision(samples=samples), seed=1)
+            elapsed = time.perf_counter() - t
+            if len(levels) == 1:
+                base = base or {}
+                base[method] = elapsed
+            rows.append([method, len(levels), elapsed, elapsed / base[method]])
+    return rows
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--quick", action="store_true", help="tiny budget (smoke test)")
@@ -204,6 +242,13 @@ def main(argv: list[str] | None = None) -> int:
     results["diagnostics"] = diagnostics_flags(n, 2 if args.quick else 20)
     table("Reliability flags over seeds", ["case", "estimator", "flagged"],
           results["diagnostics"])
+    results["risk_measures"] = risk_measures(n)
+    table("VaR and TVaR (relative half-widths of the 95% intervals)",
+          ["book", "used", "level", "VaR", "VaR half-width", "TVaR", "TVaR half-width"],
+          results["risk_measures"])
+    results["level_cost"] = level_cost(n)
+    table("Cost of many levels (one sample set)", ["method", "levels", "seconds",
+          "ratio to one level"], results["level_cost"])
     OUT.mkdir(exist_ok=True)
     (OUT / "results.json").write_text(json.dumps(results, indent=1, default=_json_default))
     return 0

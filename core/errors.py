@@ -21,6 +21,10 @@ class TailgaugeError(Exception):
         self.parameter = parameter
         self.message = message
 
+    def __reduce__(self) -> tuple[type, tuple[str, str]]:
+        # Two constructor arguments: tell pickle so errors cross process boundaries.
+        return (type(self), (self.parameter, self.message))
+
 
 class ParameterError(TailgaugeError, ValueError):
     """An argument is out of its domain; `parameter` names it (dotted path allowed)."""

@@ -339,3 +339,36 @@ def _losses(curves: _Curves, n_layers: int, losses: Sequence[float]) -> list[Int
     base = 3 * n_layers
     return [_interval(float(curves.extra[base + i]), float(curves.extra_se[base + i]))
             for i in range(len(losses))]
+
+
+@dataclass(frozen=True, kw_only=True)
+class CurvePoint:
+    """A point of the exceedance curve: the loss with the given return period (years), or
+    the return period of the given loss."""
+
+    return_period: float
+    loss: float
+    loss_ci_low: float
+    loss_ci_high: float
+    probability: float
+
+
+def exceedance_curve(
+    portfolio: Portfolio, *, return_periods: Sequence[float] = (), losses: Sequence[float] = (),
+    method: str = "auto", precision: Precision | None = None, seed: int | None = None,
+) -> tuple[list[CurvePoint], list[CurvePoint], TailResult]:
+    """Losses at return periods T (the VaR at level 1 - 1/T) and return periods 1/P(S > loss)
+    of given losses, from one sample set."""
+    for i, t in enumerate(return_periods):
+        if not (math.isfinite(t) and t > 1.0):
+            raise ParameterError(f"return_periods.{i}", f"must be a number of years > 1, got {t}")
+    levels = [1.0 - 1.0 / t for t in return_periods]
+    res = tail_estimates(portfolio, levels=levels, losses=losses, method=method,
+                         precision=precision, seed=seed)
+    by_period = [CurvePoint(return_period=t, loss=m.var.value, loss_ci_low=m.var.ci_low,
+                            loss_ci_high=m.var.ci_high, probability=1.0 / t)
+                 for t, m in zip(return_periods, res.measures, strict=True)]
+    by_loss = [CurvePoint(return_period=(1.0 / p.value) if p.value > 0 else math.inf,
+                          loss=x, loss_ci_low=x, loss_ci_high=x, probability=p.value)
+               for x, p in zip(losses, res.loss_exceedance, strict=True)]
+    return by_period, by_loss, res

@@ -49,7 +49,9 @@ class Precision:
     def minimum(self) -> int:
         if self.samples is not None:
             return int(self.samples)
-        return 10_000 if self.relative_error is not None else DEFAULT_SAMPLES
+        if self.relative_error is not None:
+            return min(10_000, self.max_samples or 10_000)
+        return DEFAULT_SAMPLES
 
     @property
     def cap(self) -> int:

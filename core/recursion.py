@@ -32,6 +32,7 @@ from scipy.linalg import solve_triangular
 from core.counts import Binomial, ClaimCount, Fixed, NegativeBinomial, Poisson
 from core.discretise import (
     TINY,
+    CellSplit,
     Grid,
     Lattice,
     Rounding,
@@ -42,6 +43,7 @@ from core.discretise import (
     flush,
     point_mass,
     require_nonnegative,
+    split_cells,
 )
 from core.errors import LimitError, ParameterError
 from core.portfolio import Line, Portfolio
@@ -62,9 +64,10 @@ _Floats = NDArray[np.float64]
 
 DEFAULT_CELLS = 8192
 _LEAF = 64  # the Panjer recursion solves ranges this short as one triangular system
-# log P(S = 0) below this would underflow the recursion's start; such a count is split into
-# equal independent parts (Poisson and negative binomial laws are infinitely divisible).
-_LOG_START_MIN = -600.0
+# The recursion starts from P(S = 0) and zeroes values below TINY (1e-150) on the way, so its
+# start must stay well above TINY: a count with log P(S = 0) below this is split into equal
+# independent parts (Poisson and negative binomial laws are infinitely divisible).
+_LOG_START_MIN = -300.0
 # Panjer's mass beyond the top is 1 - sum, good to ~1e-16 absolute: the bounds are widened by
 # this much, and below _COMPLEMENT_MIN the exact count series is used instead.
 _COMPLEMENT_SLACK = 1e-13
@@ -110,6 +113,8 @@ def _panjer(f: _Floats, a: float, b: float, log_start: float) -> _Floats:
             rhs[0], weight[0, :] = start, 0.0
         values = _forward_substitution(np.diag(diag[lo:hi]) - weight, rhs)
         g[lo:hi] = np.where(values < TINY, 0.0, values)
+        if lo == 0:
+            g[0] = start
 
     def solve(lo: int, hi: int) -> None:
         if hi - lo <= _LEAF:
@@ -449,9 +454,13 @@ def exceedance_bounds(
             p = 1.0 if x < 0.0 else _zero_threshold(portfolio)
             out.append((p, p, p))
             continue
-        grid = Grid.with_top(top=x, cells=n_cells)
-        lower = aggregate(portfolio, grid, "down").beyond
-        upper = aggregate(portfolio, grid, "up").beyond
+        refined = _refined_bounds(portfolio, x, n_cells)
+        if refined is None:
+            grid = Grid.with_top(top=x, cells=n_cells)
+            lower = aggregate(portfolio, grid, "down").beyond
+            upper = aggregate(portfolio, grid, "up").beyond
+        else:
+            lower, upper = refined
         estimates = [_nearest_estimate(portfolio, x, n_cells // d) for d in (1, 2, 4)]
         point = min(max(_romberg(*estimates), lower), upper)
         out.append((lower, upper, point))
@@ -469,3 +478,82 @@ def iid_sum_bounds(
     """exceedance_bounds for the sum of n independent claims of one law."""
     portfolio = Portfolio(lines=[Line(count=Fixed(n=n), severity=severity)])
     return exceedance_bounds(portfolio, thresholds, cells=cells, max_cells=max_cells)
+
+
+# ------------------------------------------------------------------------ within-cell refinement
+
+_SUB_MAX = 512  # sub-points per cell for the residual laws
+_SUB_WORK = 1 << 24  # cells * sub: cdf evaluations per line
+_SUB_SUM = 1 << 17  # claims * sub: length of the residual sum
+
+
+def _line_split(line: Line, grid: Grid, sub: int) -> tuple[CellSplit, int] | None:
+    """(claim split, number of claims) for a fixed or binomial count, else None."""
+    count = line.paid_count
+    if isinstance(count, Fixed):
+        return split_cells(line.paid_severity, grid, sub), count.n
+    if isinstance(count, Binomial):
+        split = split_cells(line.paid_severity, grid, sub)
+        return split.thinned(count.probability), count.trials
+    return None
+
+
+def _residual_sum(law: _Floats, n: int) -> _Floats:
+    """pmf of the sum of n independent residuals on the sub-grid (full length n * sub + 1)."""
+    result = np.ones(1)
+    power = law
+    while n:
+        if n & 1:
+            result = convolve_window(result, power, 0, result.size + power.size - 1)
+        n >>= 1
+        if n:
+            power = convolve_window(power, power, 0, 2 * power.size - 1)
+    return result
+
+
+def _survival(pmf: _Floats, at: _Floats) -> _Floats:
+    """P(V > t) for integer t (t beyond the support gives 0), summed from the top."""
+    tail = np.concatenate([np.cumsum(pmf[::-1])[::-1][1:], [0.0]])
+    return np.where(at < tail.size, tail[np.minimum(at, tail.size - 1)], 0.0)
+
+
+def _refined_bounds(portfolio: Portfolio, x: float, cells: int) -> tuple[float, float] | None:
+    """Bounds for P(S > x) from the within-cell refinement (CellSplit), or None when a line has
+    a random count or the refinement would not beat plain rounding.
+
+    upper = P(A_up + V_hi > x), lower = P(A_low + V_lo > x + N h), with A the lattice parts'
+    sum (on the grid, the lower one shifted by one cell per claim) and V the independent sum of
+    the N residuals; only the N cells below the threshold need V, the rest is A's tail.
+    """
+    if not all(isinstance(line.paid_count, Fixed | Binomial) for line in portfolio.lines):
+        return None
+    claims = sum(
+        c.n if isinstance(c, Fixed) else c.trials
+        for c in (line.paid_count for line in portfolio.lines)
+        if isinstance(c, Fixed | Binomial)
+    )
+    if claims == 0:
+        return 0.0, 0.0
+    sub = int(min(_SUB_MAX, max(8, _SUB_WORK // cells), max(8, _SUB_SUM // claims)))
+    grid = Grid.with_top(top=x, cells=cells)
+    parts = [_line_split(line, grid, sub) for line in portfolio.lines]
+    splits = [part for part in parts if part is not None]
+    if sum(split.cost * n for split, n in splits) >= 0.5 * claims:
+        return None
+    upper_sum = _product([convolution_power(s.upper_lattice(), n) for s, n in splits])
+    lower_sum = _product([convolution_power(s.lower_lattice(claims), n) for s, n in splits])
+    v_hi = _residual_sum(splits[0][0].residual_up, splits[0][1])
+    v_lo = _residual_sum(splits[0][0].residual_low, splits[0][1])
+    for split, n in splits[1:]:
+        v_hi = np.convolve(v_hi, _residual_sum(split.residual_up, n))
+        v_lo = np.convolve(v_lo, _residual_sum(split.residual_low, n))
+    near = np.arange(max(0, cells - claims), cells + 1)
+    upper = upper_sum.beyond + float(
+        np.dot(upper_sum.pmf[near], _survival(v_hi, (cells - near) * sub))
+    )
+    top = cells + claims
+    near = np.arange(cells, top + 1)
+    lower = lower_sum.beyond + float(
+        np.dot(lower_sum.pmf[near], _survival(v_lo, (top - near) * sub))
+    )
+    return lower, min(upper, 1.0)

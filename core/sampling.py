@@ -15,6 +15,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from core.counts import ClaimCount
+from core.errors import LimitError
 from core.portfolio import Portfolio
 from core.severities import Severity
 
@@ -23,6 +24,8 @@ _CLAIMS_PER_BLOCK = 1 << 20
 _MIN_BLOCK, _MAX_BLOCK = 64, 8192
 
 MAIN, PILOT = 0, 1
+# A guard against proposals (or models) that would need more memory than a block allows.
+MAX_CLAIMS_PER_BLOCK = 1 << 26
 
 
 def block_size(portfolio: Portfolio) -> int:
@@ -150,6 +153,13 @@ def draw_block(
         law = line.paid_count
         sb_law = law.size_biased_minus_one() if sb_mask is not None and sb_mask.any() else None
         counts, llr = draw_counts(law, sb_law, sb_mask, prop.count_tilt, m, rng)
+        if counts.sum() > MAX_CLAIMS_PER_BLOCK:
+            raise LimitError(
+                "thresholds",
+                f"the sampler would draw {int(counts.sum()):,} claims for {m} samples of line "
+                f"{k} (limit {MAX_CLAIMS_PER_BLOCK:,}): the threshold is too far out for this "
+                "proposal, or the portfolio too large",
+            )
         claims, claim_llr = draw_claims(
             line.paid_severity, prop, int(counts.sum()), rng, stepwise[k]
         )

@@ -1237,6 +1237,22 @@ class Excess(Severity):
         shifted = self.base._isf_log(log_q + self._log_sf_retention)
         return np.maximum(shifted - self.retention, 0.0)
 
+    def _sample(self, size: int | tuple[int, ...], rng: np.random.Generator) -> _Floats:
+        # Rejection from the base law when most draws pass the retention: a base sampler is
+        # much cheaper than the inverse transform of some laws (the gamma's, for one).
+        if self._log_sf_retention < math.log(0.05):
+            return super()._sample(size, rng)
+        total = int(np.prod(size))
+        kept: list[np.ndarray] = []
+        have = 0
+        while have < total:
+            want = int((total - have) / math.exp(self._log_sf_retention) * 1.1) + 16
+            draws = np.asarray(self.base._sample(want, rng), dtype=np.float64)
+            over = draws[draws > self.retention] - self.retention
+            kept.append(over)
+            have += over.size
+        return np.concatenate(kept)[:total].reshape(size)
+
     def _moment(self, k: int) -> float:
         if not math.isfinite(self.base.moment(k)):
             return math.inf

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import core
-from core.errors import TailgaugeError
+from core.errors import LimitError, TailgaugeError
 from service import limits, translate
 from service.executor import ComputePool
 from service.schemas.common import PortfolioRequest
@@ -46,3 +46,11 @@ async def run_engine(
         return await pool.run(fn, *args, wall_limit_s=wall_limit_s, **kwargs)
     except TailgaugeError as exc:
         raise translate.engine_error_path(exc) from exc
+    except (ArithmeticError, ValueError, MemoryError) as exc:
+        # A model at the edge of double precision (or of memory) that the core's own checks
+        # did not catch: the request, not the server, is at fault, so 422 and not 500.
+        raise LimitError(
+            "portfolio",
+            f"the model is outside what the engine can compute in double precision "
+            f"({type(exc).__name__}: {exc}); rescale the amounts or narrow the parameters",
+        ) from exc

@@ -9,6 +9,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from core.diagnostics import ContributionStats
+from core.errors import LimitError, MethodError, TailgaugeError
 from core.estimators import conditional, crude, tilted
 from core.estimators.base import Group
 from core.portfolio import Portfolio
@@ -69,7 +70,16 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
 
 def choose(portfolio: Portfolio, x: np.ndarray, seed: int) -> tuple[list[Trial], str]:
     """Trials ordered best first, and the reason in words."""
-    trials = [pilot(name, portfolio, x, seed) for name in candidates(portfolio)]
+    trials: list[Trial] = []
+    refused: list[TailgaugeError] = []
+    for name in candidates(portfolio):
+        try:
+            trials.append(pilot(name, portfolio, x, seed))
+        except (LimitError, MethodError) as exc:
+            # A candidate that cannot serve this request leaves the choice to the others.
+            refused.append(exc)
+    if not trials:
+        raise refused[0]
     trials.sort(key=lambda t: (not t.reliable.all(), t.cost))
     best = trials[0]
     others = ", ".join(

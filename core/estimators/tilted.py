@@ -14,7 +14,7 @@ import math
 import numpy as np
 from scipy.optimize import brentq
 
-from core.errors import MethodError, ParameterError
+from core.errors import LimitError, MethodError, ParameterError
 from core.estimators.base import Group, work_per_sample
 from core.portfolio import Portfolio
 from core.sampling import LineProposal, StepwiseTilt, draw_block
@@ -121,6 +121,18 @@ def _proposals(portfolio: Portfolio, theta: float):
     return props, steps
 
 
+MAX_TILTED_CLAIMS = 1e5
+
+
+def _tilted_claims(portfolio: Portfolio, props: list[LineProposal]) -> float:
+    """Expected claims per sample under the tilted proposal."""
+    total = 0.0
+    for line, prop in zip(portfolio.lines, props, strict=True):
+        law = line.paid_count
+        total += law.tilted(prop.count_tilt).mean if prop.count_tilt else law.mean
+    return total
+
+
 def plan(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
     check_light(portfolio)
     groups = []
@@ -135,6 +147,13 @@ def plan(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
             out[hit] = np.exp(draw.log_lr[hit])
             return out[:, None]
 
-        work = work_per_sample(portfolio.expected_claims, 0)
+        claims = _tilted_claims(portfolio, props)
+        if claims > MAX_TILTED_CLAIMS:
+            raise LimitError(
+                f"thresholds.{i}",
+                f"{float(x):g} is so far in the tail that the tilted proposal draws about "
+                f"{claims:.3g} claims per sample (limit {MAX_TILTED_CLAIMS:g})",
+            )
+        work = work_per_sample(claims, 0)
         groups.append(Group((i,), values, work, f"exponential tilt theta = {theta:.6g}"))
     return groups

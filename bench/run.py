@@ -218,6 +218,40 @@ def level_cost(samples: int) -> list[list]:
     return rows
 
 
+def diagnostics_cost(samples: int, repeats: int = 3) -> list[list]:
+    """Time of drawing the contributions alone against drawing plus accumulating them with
+    every diagnostic (top-k, batches, k-hat, ESS): lognormal n = 10, 5 thresholds."""
+    from core.diagnostics import ContributionStats
+    from core.estimators.conditional import plan_plain
+    from core.sampling import MAIN, block_rng, block_size, blocks
+
+    sev = stats.lognorm(s=1.0)
+    port = single(Fixed(n=10), Lognormal(mu=0.0, sigma=1.0))
+    xs = np.array([float(sev.isf(p / 10)) for p in (1e-3, 1e-5, 1e-7, 1e-9, 1e-11)])
+    group = plan_plain(port, xs)[0]
+    size = block_size(port)
+
+    def draw_only() -> None:
+        for b, m in blocks(samples, size):
+            group.block_values(m, block_rng(1, MAIN, 0, b))
+
+    def with_stats() -> None:
+        parts = [ContributionStats.from_samples(group.block_values(m, block_rng(1, MAIN, 0, b)),
+                                                chunk=b) for b, m in blocks(samples, size)]
+        ContributionStats.combine(parts).diagnose()
+
+    def best(fn) -> float:
+        out = []
+        for _ in range(repeats):
+            t = time.perf_counter()
+            fn()
+            out.append(time.perf_counter() - t)
+        return min(out)
+
+    a, b = best(draw_only), best(with_stats)
+    return [["conditional, lognormal n=10, 5 thresholds", samples, a, b, b / a - 1.0]]
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--quick", action="store_true", help="tiny budget (smoke test)")
@@ -249,6 +283,9 @@ def main(argv: list[str] | None = None) -> int:
     results["level_cost"] = level_cost(n)
     table("Cost of many levels (one sample set)", ["method", "levels", "seconds",
           "ratio to one level"], results["level_cost"])
+    results["diagnostics_cost"] = diagnostics_cost(n, repeats=1 if args.quick else 3)
+    table("Cost of the diagnostics", ["case", "samples", "draw s", "draw + diagnostics s",
+          "overhead"], results["diagnostics_cost"])
     OUT.mkdir(exist_ok=True)
     (OUT / "results.json").write_text(json.dumps(results, indent=1, default=_json_default))
     return 0

@@ -306,16 +306,19 @@ class CellSplit:
     """A claim written as lattice part + residual: X = k h + R with R in (0, h] for X in cell k.
 
     Given its cell, R has the cdf G_k(r) = P(X <= k h + r | k h < X <= (k + 1) h). Over the
-    "good" cells all G_k lie between two cdfs, so with one uniform U per claim the residuals
-    G_k^-1(U) are squeezed between G_lo^-1(U) and G_hi^-1(U), which do not depend on the cell:
+    "good" cells every G_k lies between two cdfs G_lo >= G_k >= G_hi, so writing each claim
+    with one uniform U as k h + G_k^-1(U) couples it with R_hi = G_hi^-1(U) and
+    R_lo = G_lo^-1(U), which do not depend on the cell (a coupling for the usual stochastic
+    order):
 
-        upper:  X <= (k h + [h if bad])       + R_hi,   R_hi ~ residual_up, independent
-        lower:  X >= (k h + [0 if good, -h if bad]) + R_lo,   R_lo ~ residual_low, independent.
+        upper:  X <= k h + (h if the cell is bad) + R_hi
+        lower:  X >= k h - (h if the cell is bad) + R_lo,   0 <= R_lo, R_hi <= h.
 
-    Summed over n claims the residuals add up to an independent n-fold sum, which is why the
-    bounds then differ by about n h (spread + 2 P(bad)) instead of n h: a second-order gap for
-    smooth laws. Steep cells (the rise of a lognormal near 0, a cell holding an atom) would
-    widen the spread for every claim, so they are marked bad and rounded the plain way.
+    Summed over n claims the residuals form an independent n-fold sum, and the two bounds
+    differ by about n h (spread + 2 P(bad)) instead of n h for plain rounding; the spread is
+    of order h for a smooth law, so the gap is of second order. Steep cells (the rise of a
+    lognormal near 0, a cell holding an atom) would widen the spread for every claim, so they
+    are marked bad: split_cells picks the cut that minimises spread + 2 P(bad).
 
     The residual laws live on the sub-grid j h / sub: residual_up rounds up (st-larger than
     every good G_k), residual_low rounds down (st-smaller). The mass at 0 and above the top are
@@ -330,7 +333,19 @@ class CellSplit:
     beyond: float  # P(X > top)
     residual_up: NDArray[np.float64]  # P(R_hi = j h / sub), j = 0 .. sub
     residual_low: NDArray[np.float64]  # P(R_lo = j h / sub), j = 0 .. sub
-    cost: float  # (E R_hi - E R_lo) / h + 2 P(bad): the gap per claim in units of h
+    spread: float  # (E R_hi - E R_lo) / h
+
+    @property
+    def gap(self) -> float:
+        """Expected gap between the upper and lower value of one claim, in units of h: the
+        residual spread, 2 for a bad cell (k + 1 against k - 1) and 1 for a claim of 0
+        (R_hi against R_lo - h)."""
+        return self.spread + 2.0 * math.fsum(self.masses[~self.good]) + self.at_zero
+
+    @property
+    def plain_gap(self) -> float:
+        """The same for plain rounding up and down: 1 for every claim above 0."""
+        return 1.0 - self.at_zero
 
     def thinned(self, q: float) -> CellSplit:
         """The claim paid with probability q, else 0 (one trial of a binomial count)."""
@@ -339,17 +354,13 @@ class CellSplit:
             masses=q * self.masses,
             at_zero=(1.0 - q) + q * self.at_zero,
             beyond=q * self.beyond,
-            cost=self.cost - 2.0 * (1.0 - q) * self._bad_mass(),
         )
-
-    def _bad_mass(self) -> float:
-        return math.fsum(self.masses[~self.good])
 
     def upper_lattice(self) -> Lattice:
         """Lattice part for the upper bound, on the grid itself: good cell k -> k, bad -> k + 1."""
         cells = self.grid.cells
         index = np.arange(cells) + np.where(self.good, 0, 1)
-        pmf = np.bincount(index, weights=self.masses, minlength=cells + 1)
+        pmf = np.bincount(index, weights=self.masses, minlength=cells + 1).astype(np.float64)
         pmf[0] += self.at_zero
         return flush(Lattice(pmf=pmf, beyond=self.beyond, rounding="up"))
 
@@ -360,7 +371,9 @@ class CellSplit:
         the top is beyond (it makes S exceed the threshold on its own)."""
         cells = self.grid.cells
         index = np.arange(cells) + np.where(self.good, 1, 0)
-        pmf = np.bincount(index, weights=self.masses, minlength=cells + claims + 1)
+        pmf = np.bincount(index, weights=self.masses, minlength=cells + claims + 1).astype(
+            np.float64
+        )
         pmf[0] += self.at_zero
         return flush(Lattice(pmf=pmf, beyond=self.beyond, rounding="down"))
 
@@ -421,5 +434,5 @@ def split_cells(severity: Severity, grid: Grid, sub: int) -> CellSplit:
         beyond=float(severity.sf(grid.top)),
         residual_up=residual_up,
         residual_low=residual_low,
-        cost=float(costs[best]),
+        spread=float(spread[best]),
     )

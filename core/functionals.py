@@ -96,7 +96,8 @@ def conditional_is_sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequenc
     cond = Conditioning(portfolio)
     stop_loss = _check_means(portfolio, cond)
     family = capped_family(cond, float(max(anchors)))
-    thetas = [adapt(portfolio, float(x), seed, 4096 + i)[1] for i, x in enumerate(anchors)]
+    thetas = [adapt(portfolio, float(x), seed, 4096 + i)[1]
+              for i, x in enumerate(spread_out(anchors))]
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         j = cond.choose(m, rng)
@@ -109,7 +110,7 @@ def conditional_is_sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequenc
 def tilted_sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequence[float]) -> BlockValues:
     """A mixture of exponential tilts, one at each anchor's saddlepoint."""
     tilted.check_light(portfolio)
-    thetas = sorted({tilted.saddlepoint(portfolio, float(x)) for x in anchors})
+    thetas = sorted({tilted.saddlepoint(portfolio, float(x)) for x in spread_out(anchors)})
     top = max(thetas)
     grids: dict[int, TiltGrid | None] = {}
     for k, line in enumerate(portfolio.lines):
@@ -120,6 +121,19 @@ def tilted_sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequence[float]
     # Thresholds below the mean need no tilt: the model itself is then a component.
     share = 1.0 / len(thetas) if 0.0 in thetas and len(thetas) > 1 else 0.0
     return lambda m, rng: _plain_values(family.draw(nonzero, m, rng, defensive=share), a)
+
+
+MAX_COMPONENTS = 3
+
+
+def spread_out(anchors: Sequence[float]) -> list[float]:
+    """At most MAX_COMPONENTS anchors (the extremes and the middle): mixture components
+    adapted at neighbouring points overlap, and each costs a pilot."""
+    points = sorted(set(float(a) for a in anchors))
+    if len(points) <= MAX_COMPONENTS:
+        return points
+    picks = np.linspace(0, len(points) - 1, MAX_COMPONENTS).round().astype(int)
+    return [points[i] for i in picks]
 
 
 def _check_means(portfolio: Portfolio, cond: Conditioning) -> bool:

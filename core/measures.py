@@ -15,6 +15,7 @@ import math
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 from scipy import stats
@@ -148,6 +149,10 @@ class _Curves:
         self.high = self.p + Z95 * self.p_se
         self.stats = stats_
 
+    @cached_property
+    def diagnostics(self) -> list[Diagnostics]:
+        return self.stats.diagnose()
+
     def var(self, q: float) -> tuple[float | None, float | None, float | None]:
         p = 1.0 - q
         return _invert(self.a, self.p, p), _invert(self.a, self.low, p), _invert(
@@ -241,7 +246,9 @@ def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str
     if method != "auto":
         return method, f"{method} requested"
     points = [_guess_var(portfolio, float(level)) for level in q] + [x for x in extra if x > 0]
-    trials, reason = select.choose(portfolio, np.asarray(points or [portfolio.mean]), seed)
+    # The pilot compares estimators at the extreme points only: it costs a pilot per point.
+    probe = sorted(points)[:: max(1, len(points) - 1)] if points else [portfolio.mean]
+    trials, reason = select.choose(portfolio, np.asarray(probe), seed)
     return trials[0].name, reason
 
 
@@ -291,7 +298,7 @@ def _measure(curves: _Curves, q: float, portfolio: Portfolio) -> MeasureEstimate
     v, lo, hi = curves.var(q)
     a = curves.a
     g = int(np.clip(np.searchsorted(a, v if v is not None else a[0]), 0, a.size - 1))
-    diag = curves.stats.diagnose()[g]
+    diag = curves.diagnostics[g]
     if v is None:
         nan_safe = float(a[-1])
         var = Interval(value=nan_safe, ci_low=float(a[0]), ci_high=nan_safe)
@@ -319,7 +326,7 @@ def _interval(value: float, se: float) -> Interval:
 
 def _layers(curves: _Curves, a: np.ndarray, layers: Sequence[Layer]) -> list[LayerEstimate]:
     out = []
-    diags = curves.stats.diagnose()
+    diags = curves.diagnostics
     for i, ly in enumerate(layers):
         col = 3 * i
         el, el_se = curves.extra[col], curves.extra_se[col]

@@ -8,6 +8,11 @@ probability, else nothing"); Panjer's recursion of the (a, b, 0) class for Poiss
 binomial counts, or, for tails below 1e-6, the count series sum_n P(N = n) X^{*n}. Lines are
 combined by convolution. All of it adds non-negative terms only.
 
+For fixed and binomial counts the bounds are tightened by splitting each claim into its cell
+and a residual within the cell (core.discretise.CellSplit): the residuals are bounded by one
+law for all smooth cells and add up independently, which turns the gap of about n h between
+rounding up and down into one of order n h^2.
+
 A threshold is always the top lattice point and the mass beyond it is carried as its own number,
 so a tail probability is read off as that mass. The one exception is Panjer's recursion, which
 yields P(S = k) for k <= K only: its mass beyond is 1 - sum (round-off ~1e-16), used only while
@@ -328,6 +333,85 @@ def aggregate(
     return total
 
 
+# ------------------------------------------------------------------------ within-cell refinement
+
+_SUB_MAX = 512  # sub-points per cell for the residual laws
+_SUB_WORK = 1 << 24  # cells * sub: cdf evaluations per line
+_SUB_SUM = 1 << 17  # claims * sub: length of the residual sum
+
+
+def _line_split(line: Line, grid: Grid, sub: int) -> tuple[CellSplit, int] | None:
+    """(claim split, number of claims) for a fixed or binomial count, else None."""
+    count = line.paid_count
+    if isinstance(count, Fixed):
+        return split_cells(line.paid_severity, grid, sub), count.n
+    if isinstance(count, Binomial):
+        split = split_cells(line.paid_severity, grid, sub)
+        return split.thinned(count.probability), count.trials
+    return None
+
+
+def _residual_sum(law: _Floats, n: int) -> _Floats:
+    """pmf of the sum of n independent residuals on the sub-grid (full length n * sub + 1)."""
+    result = np.ones(1)
+    power = law
+    while n:
+        if n & 1:
+            result = convolve_window(result, power, 0, result.size + power.size - 1)
+        n >>= 1
+        if n:
+            power = convolve_window(power, power, 0, 2 * power.size - 1)
+    return result
+
+
+def _survival(pmf: _Floats, at: NDArray[np.int64]) -> _Floats:
+    """P(V > t) for integer t (t beyond the support gives 0), summed from the top."""
+    tail = np.concatenate([np.cumsum(pmf[::-1])[::-1][1:], [0.0]])
+    return np.where(at < tail.size, tail[np.minimum(at, tail.size - 1)], 0.0)
+
+
+def _refined_bounds(portfolio: Portfolio, x: float, cells: int) -> tuple[float, float] | None:
+    """Bounds for P(S > x) from the within-cell refinement (CellSplit), or None when a line has
+    a random count or the refinement would not beat plain rounding.
+
+    upper = P(A_up + V_hi > x), lower = P(A_low + V_lo > x + N h), with A the lattice parts'
+    sum (on the grid, the lower one shifted by one cell per claim) and V the independent sum of
+    the N residuals; only the N cells below the threshold need V, the rest is A's tail.
+    """
+    if not all(isinstance(line.paid_count, Fixed | Binomial) for line in portfolio.lines):
+        return None
+    claims = sum(
+        c.n if isinstance(c, Fixed) else c.trials
+        for c in (line.paid_count for line in portfolio.lines)
+        if isinstance(c, Fixed | Binomial)
+    )
+    if claims == 0:
+        return 0.0, 0.0
+    sub = int(min(_SUB_MAX, max(8, _SUB_WORK // cells), max(8, _SUB_SUM // claims)))
+    grid = Grid.with_top(top=x, cells=cells)
+    parts = [_line_split(line, grid, sub) for line in portfolio.lines]
+    splits = [part for part in parts if part is not None]
+    if sum(n * split.gap for split, n in splits) >= sum(n * split.plain_gap for split, n in splits):
+        return None  # e.g. a binomial with few paid claims: plain rounding is tighter
+    upper_sum = _product([convolution_power(s.upper_lattice(), n) for s, n in splits])
+    lower_sum = _product([convolution_power(s.lower_lattice(claims), n) for s, n in splits])
+    v_hi = _residual_sum(splits[0][0].residual_up, splits[0][1])
+    v_lo = _residual_sum(splits[0][0].residual_low, splits[0][1])
+    for split, n in splits[1:]:
+        v_hi = np.convolve(v_hi, _residual_sum(split.residual_up, n))
+        v_lo = np.convolve(v_lo, _residual_sum(split.residual_low, n))
+    near = np.arange(max(0, cells - claims), cells + 1, dtype=np.int64)
+    upper = upper_sum.beyond + float(
+        np.dot(upper_sum.pmf[near], _survival(v_hi, (cells - near) * sub))
+    )
+    top = cells + claims
+    near = np.arange(cells, top + 1, dtype=np.int64)
+    lower = lower_sum.beyond + float(
+        np.dot(lower_sum.pmf[near], _survival(v_lo, (top - near) * sub))
+    )
+    return lower, min(upper, 1.0)
+
+
 # ------------------------------------------------------------------------ public results
 
 
@@ -437,19 +521,24 @@ def exceedance_bounds(
 ) -> list[tuple[float, float, float]]:
     """(lower, upper, point) for P(S > x) at each threshold x.
 
-    Each threshold gets its own grid of `cells` cells ending exactly at it, with an absorbing
-    cell above. lower and upper are rigorous bounds (claims rounded down and up; exact up to
-    floating-point rounding, and up to 1e-13 absolute where Panjer's complement is used).
-    point rounds claims to the nearest point at spans h, 2h and 4h, extrapolates to h = 0 and is
+    Each threshold gets its own grid of `cells` cells (rounded up to a multiple of 4) ending
+    exactly at it, with an absorbing cell above. lower and upper are rigorous bounds, exact up
+    to floating-point rounding (and up to 1e-13 absolute where Panjer's complement is used):
+    claims rounded down and up or, when every count is fixed or binomial and it is tighter,
+    the within-cell refinement (core.discretise.CellSplit), whose gap is of order h^2. point
+    rounds claims to the nearest point at spans h, 2h and 4h, extrapolates to h = 0 and is
     kept within the bounds.
     """
     n_cells = _check_cells(cells, max_cells, multiple=4)  # the estimate also uses 2h and 4h
     _check_portfolio(portfolio)
-    out: list[tuple[float, float, float]] = []
-    for i, x in enumerate(thresholds):
-        x = float(x)
+    xs = [float(x) for x in thresholds]
+    if not xs:
+        raise ParameterError("thresholds", "must hold at least one threshold")
+    for i, x in enumerate(xs):
         if not math.isfinite(x):
             raise ParameterError(f"thresholds.{i}", f"must be a finite number, got {x!r}")
+    out: list[tuple[float, float, float]] = []
+    for x in xs:
         if x <= 0.0:
             p = 1.0 if x < 0.0 else _zero_threshold(portfolio)
             out.append((p, p, p))
@@ -478,82 +567,3 @@ def iid_sum_bounds(
     """exceedance_bounds for the sum of n independent claims of one law."""
     portfolio = Portfolio(lines=[Line(count=Fixed(n=n), severity=severity)])
     return exceedance_bounds(portfolio, thresholds, cells=cells, max_cells=max_cells)
-
-
-# ------------------------------------------------------------------------ within-cell refinement
-
-_SUB_MAX = 512  # sub-points per cell for the residual laws
-_SUB_WORK = 1 << 24  # cells * sub: cdf evaluations per line
-_SUB_SUM = 1 << 17  # claims * sub: length of the residual sum
-
-
-def _line_split(line: Line, grid: Grid, sub: int) -> tuple[CellSplit, int] | None:
-    """(claim split, number of claims) for a fixed or binomial count, else None."""
-    count = line.paid_count
-    if isinstance(count, Fixed):
-        return split_cells(line.paid_severity, grid, sub), count.n
-    if isinstance(count, Binomial):
-        split = split_cells(line.paid_severity, grid, sub)
-        return split.thinned(count.probability), count.trials
-    return None
-
-
-def _residual_sum(law: _Floats, n: int) -> _Floats:
-    """pmf of the sum of n independent residuals on the sub-grid (full length n * sub + 1)."""
-    result = np.ones(1)
-    power = law
-    while n:
-        if n & 1:
-            result = convolve_window(result, power, 0, result.size + power.size - 1)
-        n >>= 1
-        if n:
-            power = convolve_window(power, power, 0, 2 * power.size - 1)
-    return result
-
-
-def _survival(pmf: _Floats, at: _Floats) -> _Floats:
-    """P(V > t) for integer t (t beyond the support gives 0), summed from the top."""
-    tail = np.concatenate([np.cumsum(pmf[::-1])[::-1][1:], [0.0]])
-    return np.where(at < tail.size, tail[np.minimum(at, tail.size - 1)], 0.0)
-
-
-def _refined_bounds(portfolio: Portfolio, x: float, cells: int) -> tuple[float, float] | None:
-    """Bounds for P(S > x) from the within-cell refinement (CellSplit), or None when a line has
-    a random count or the refinement would not beat plain rounding.
-
-    upper = P(A_up + V_hi > x), lower = P(A_low + V_lo > x + N h), with A the lattice parts'
-    sum (on the grid, the lower one shifted by one cell per claim) and V the independent sum of
-    the N residuals; only the N cells below the threshold need V, the rest is A's tail.
-    """
-    if not all(isinstance(line.paid_count, Fixed | Binomial) for line in portfolio.lines):
-        return None
-    claims = sum(
-        c.n if isinstance(c, Fixed) else c.trials
-        for c in (line.paid_count for line in portfolio.lines)
-        if isinstance(c, Fixed | Binomial)
-    )
-    if claims == 0:
-        return 0.0, 0.0
-    sub = int(min(_SUB_MAX, max(8, _SUB_WORK // cells), max(8, _SUB_SUM // claims)))
-    grid = Grid.with_top(top=x, cells=cells)
-    parts = [_line_split(line, grid, sub) for line in portfolio.lines]
-    splits = [part for part in parts if part is not None]
-    if sum(split.cost * n for split, n in splits) >= 0.5 * claims:
-        return None
-    upper_sum = _product([convolution_power(s.upper_lattice(), n) for s, n in splits])
-    lower_sum = _product([convolution_power(s.lower_lattice(claims), n) for s, n in splits])
-    v_hi = _residual_sum(splits[0][0].residual_up, splits[0][1])
-    v_lo = _residual_sum(splits[0][0].residual_low, splits[0][1])
-    for split, n in splits[1:]:
-        v_hi = np.convolve(v_hi, _residual_sum(split.residual_up, n))
-        v_lo = np.convolve(v_lo, _residual_sum(split.residual_low, n))
-    near = np.arange(max(0, cells - claims), cells + 1)
-    upper = upper_sum.beyond + float(
-        np.dot(upper_sum.pmf[near], _survival(v_hi, (cells - near) * sub))
-    )
-    top = cells + claims
-    near = np.arange(cells, top + 1)
-    lower = lower_sum.beyond + float(
-        np.dot(lower_sum.pmf[near], _survival(v_lo, (top - near) * sub))
-    )
-    return lower, min(upper, 1.0)

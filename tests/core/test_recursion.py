@@ -84,6 +84,35 @@ def test_gamma_sum_point_estimate_holds_1e_minus_6_relative_at_1e_minus_26():
     assert_bracketed(results, [float(law.sf(x)) for x in xs], rtol=1e-6)
 
 
+def test_within_cell_refinement_gap_shrinks_faster_than_the_span():
+    # Plain rounding leaves a gap of about n h f_S(x); the refinement's gap is of order h^2
+    # (plus a small sub-grid term). Reference: 30 iid gamma(4, 0.5) sum to gamma(120, 0.5).
+    law = stats.gamma(120.0, scale=0.5)
+    x = float(law.isf(1e-10))
+    port = single(Fixed(n=30), Gamma(shape=4.0, scale=0.5))
+    widths = []
+    for cells in (1024, 4096):
+        lower, upper, _ = exceedance_bounds(port, [x], cells=cells)[0]
+        assert lower <= float(law.sf(x)) <= upper
+        widths.append(upper - lower)
+    grid = Grid.with_top(top=x, cells=4096)
+    plain = aggregate(port, grid, "up").beyond - aggregate(port, grid, "down").beyond
+    assert widths[0] / widths[1] > 6.0  # linear shrinking would give 4, quadratic 16
+    assert widths[1] < 0.1 * plain
+
+
+def test_binomial_with_most_trials_paid_uses_the_refinement():
+    # Reference: count_gamma_mixture with scipy.stats.binom(20, 0.9) weights, gamma(2, 1) claims.
+    pmf = stats.binom.pmf(np.arange(21), 20, 0.9)
+    port = single(Binomial(trials=20, probability=0.9), Gamma(shape=2.0, scale=1.0))
+    exact = count_gamma_mixture(pmf, 80.0, 2.0, 1.0)
+    grid = Grid.with_top(top=80.0, cells=1024)
+    plain = aggregate(port, grid, "up").beyond - aggregate(port, grid, "down").beyond
+    (lower, upper, point), = exceedance_bounds(port, [80.0], cells=1024)
+    assert_bracketed([(lower, upper, point)], [exact], rtol=1e-6)
+    assert upper - lower < 0.1 * plain
+
+
 def test_two_lognormal_lines_match_quadrature_of_the_convolution():
     # Reference: P(X1 + X2 > x) = P(X1 > x) + int_0^x f1(y) P(X2 > x - y) dy by
     # scipy.integrate.quad, with scipy.stats.lognorm densities and survival functions.

@@ -1,0 +1,38 @@
+"""The kinds of computation a request can ask for, by name: one code path for the HTTP
+endpoints and for batch runs.
+
+``KINDS[name].handle(request, settings, pool, metrics)`` computes exactly the body the
+synchronous endpoint returns (server limits included, errors raised as the endpoint raises
+them); ``request`` must be an instance of ``KINDS[name].request``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Awaitable, Callable
+from dataclasses import dataclass
+
+from pydantic import BaseModel
+
+from service.executor import ComputePool
+from service.metrics import Metrics
+from service.routes import exceedance
+from service.schemas.exceedance import ExceedanceRequest, ExceedanceResponse
+from service.settings import Settings
+
+Handler = Callable[[BaseModel, Settings, ComputePool, Metrics], Awaitable[BaseModel]]
+
+
+@dataclass(frozen=True)
+class Kind:
+    name: str  # "exceedance" | "risk_measures" | "layers" | "ruin"
+    request: type[BaseModel]  # the endpoint's request model
+    response: type[BaseModel]  # the endpoint's response model
+    handle: Handler
+
+
+KINDS: dict[str, Kind] = {
+    kind.name: kind
+    for kind in (
+        Kind("exceedance", ExceedanceRequest, ExceedanceResponse, exceedance.handle),
+    )
+}

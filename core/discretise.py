@@ -32,6 +32,7 @@ from core.severities import Capped, Severity
 __all__ = [
     "ROUNDINGS",
     "TINY",
+    "CellSplit",
     "Grid",
     "Lattice",
     "convolution_power",
@@ -41,6 +42,7 @@ __all__ = [
     "flush",
     "point_mass",
     "require_nonnegative",
+    "split_cells",
 ]
 
 _Floats = NDArray[np.float64]
@@ -256,6 +258,7 @@ def convolve_window(x: _Floats, y: _Floats, start: int, stop: int) -> _Floats:
 
 
 def _check_same(a: Lattice, b: Lattice) -> None:
+    # a Lattice does not carry its span: callers build both laws on one Grid
     if a.cells != b.cells or a.rounding != b.rounding:
         raise ParameterError(
             "lattice", "laws must share the grid and the rounding to be convolved"

@@ -9,7 +9,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from core.diagnostics import ContributionStats
-from core.errors import MethodError, ParameterError
+from core.errors import ParameterError
 from core.estimators import select
 from core.estimators.base import Group
 from core.portfolio import Portfolio
@@ -102,6 +102,48 @@ def _warnings(estimates: list[ExceedanceEstimate]) -> list[str]:
     return notes
 
 
+RECURSION_CELLS = 8192
+RECURSION_MAX_CELLS = 131_072
+
+
+def _recursion(
+    portfolio: Portfolio, x: np.ndarray, precision: Precision, seed: int, start: float
+) -> ExceedanceResult:
+    """Deterministic bounds (core.recursion): the grid doubles until the bounds' relative
+    width meets precision.relative_error (or the cell limit), else one default grid."""
+    from core.recursion import exceedance_bounds
+
+    target = precision.relative_error
+    cells = RECURSION_CELLS
+    while True:
+        bounds = exceedance_bounds(portfolio, x.tolist(), cells=cells,
+                                   max_cells=RECURSION_MAX_CELLS)
+        width = max((hi - lo) / 2 / pt if pt > 0 else 0.0 for lo, hi, pt in bounds)
+        if target is None or width <= target or 2 * cells > RECURSION_MAX_CELLS:
+            break
+        cells *= 2
+    stopped = "relative_error" if target is not None and width <= target else "samples"
+    estimates = []
+    for xi, (lo, hi, pt) in zip(x, bounds, strict=True):
+        half = (hi - lo) / 2
+        diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
+                           batch_ratio=None, reliable=True,
+                           reason=f"deterministic bounds on a grid of {cells} cells")
+        estimates.append(ExceedanceEstimate(
+            threshold=float(xi), value=pt, std_error=None,
+            relative_error=half / pt if pt > 0 else None, ci_low=lo, ci_high=hi, samples=0,
+            hits=0, diagnostics=diag, method="recursion"))
+    warnings = []
+    if target is not None and width > target:
+        warnings.append(f"recursion bounds are {width:.3g} wide (relative half-width) at the "
+                        f"cell limit {RECURSION_MAX_CELLS}, above the target {target:g}")
+    return ExceedanceResult(
+        method="recursion", method_reason="deterministic lower and upper bounds requested",
+        seed=seed, elapsed_s=time.monotonic() - start, stopped_by=stopped,
+        mean=portfolio.mean, std_dev=portfolio.std_dev, estimates=estimates,
+        warnings=warnings)
+
+
 def exceedance(
     portfolio: Portfolio, thresholds: Sequence[float], *, method: str = "auto",
     precision: Precision | None = None, seed: int | None = None,
@@ -114,7 +156,7 @@ def exceedance(
     if method not in METHODS:
         raise ParameterError("method", f"must be one of {', '.join(METHODS)}; got {method!r}")
     if method == "recursion":
-        raise MethodError("method", "the recursion cross-check is not available yet")
+        return _recursion(portfolio, x, precision, seed, start)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     if method == "auto":
         trials, reason = select.choose(portfolio, x, seed)

@@ -201,29 +201,36 @@ class IntegratedTail(Severity):
 
     def _isf_newton(self, log_q: _Floats) -> _Floats:
         """x with logsf(x) = log_q: Newton steps (d logsf / dx = -f_I / sf_I) kept inside a
-        bisection bracket, so every step either converges fast or halves the bracket."""
-        lo = np.zeros(log_q.shape)
+        bisection bracket, so every step either converges fast or halves the bracket. Only
+        the points not yet converged are carried to the next step."""
         top = self.support_max
+        lo = np.zeros(log_q.shape)
         hi = np.full(log_q.shape, min(max(self.base.mean, 1e-300), 0.5 * top))
-        for _ in range(2000):
-            short = (self._logsf(hi) > log_q) & (hi < top)
-            if not short.any():
+        todo = np.arange(log_q.size)
+        for _ in range(2000):  # bracket by doubling
+            short = (self._logsf(hi[todo]) > log_q[todo]) & (hi[todo] < top)
+            todo = todo[short]
+            if not todo.size:
                 break
-            lo = np.where(short, hi, lo)
-            hi = np.where(short, np.minimum(hi * 2.0, top), hi)
+            lo[todo] = hi[todo]
+            hi[todo] = np.minimum(hi[todo] * 2.0, top)
         x = 0.5 * (lo + hi)
+        todo = np.arange(log_q.size)
         for _ in range(200):
-            log_sf = self._logsf(x)
-            gap = log_sf - log_q
-            lo, hi = np.where(gap > 0, x, lo), np.where(gap > 0, hi, x)
+            xs, a, b = x[todo], lo[todo], hi[todo]
+            log_sf = self._logsf(xs)
+            gap = log_sf - log_q[todo]
+            a, b = np.where(gap > 0, xs, a), np.where(gap > 0, b, xs)
             with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-                hazard = np.exp(self.base._logsf(x) - self._log_mean - log_sf)
-                step = x + gap / hazard
-            inside = np.isfinite(step) & (step > lo) & (step < hi)
-            new = np.where(inside, step, 0.5 * (lo + hi))
-            if np.all(np.abs(new - x) <= 1e-15 * np.maximum(x, 1e-300)):
-                return new
-            x = new
+                hazard = np.exp(self.base._logsf(xs) - self._log_mean - log_sf)
+                step = xs + gap / hazard
+            inside = np.isfinite(step) & (step > a) & (step < b)
+            new = np.where(inside, step, 0.5 * (a + b))
+            x[todo], lo[todo], hi[todo] = new, a, b
+            moving = np.abs(new - xs) > 1e-15 * np.maximum(xs, 1e-300)
+            todo = todo[moving]
+            if not todo.size:
+                break
         return x
 
 

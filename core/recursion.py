@@ -336,19 +336,27 @@ def aggregate(
 # ------------------------------------------------------------------------ within-cell refinement
 
 _SUB_MAX = 512  # sub-points per cell for the residual laws
-_SUB_WORK = 1 << 24  # cells * sub: cdf evaluations per line
+_SUB_WORK = 1 << 25  # cells * sub: cdf evaluations per line
 _SUB_SUM = 1 << 17  # claims * sub: length of the residual sum
 
 
-def _line_split(line: Line, grid: Grid, sub: int) -> tuple[CellSplit, int] | None:
-    """(claim split, number of claims) for a fixed or binomial count, else None."""
-    count = line.paid_count
+def _trials(count: ClaimCount) -> int | None:
+    """Number of claims, each paid or not, for a fixed or binomial count; else None."""
     if isinstance(count, Fixed):
-        return split_cells(line.paid_severity, grid, sub), count.n
+        return count.n
     if isinstance(count, Binomial):
-        split = split_cells(line.paid_severity, grid, sub)
-        return split.thinned(count.probability), count.trials
+        return count.trials
     return None
+
+
+def _line_split(line: Line, grid: Grid, sub: int) -> CellSplit:
+    split = split_cells(line.paid_severity, grid, sub)
+    count = line.paid_count
+    return split.thinned(count.probability) if isinstance(count, Binomial) else split
+
+
+def _full_convolution(x: _Floats, y: _Floats) -> _Floats:
+    return convolve_window(x, y, 0, x.size + y.size - 1)
 
 
 def _residual_sum(law: _Floats, n: int) -> _Floats:
@@ -357,10 +365,10 @@ def _residual_sum(law: _Floats, n: int) -> _Floats:
     power = law
     while n:
         if n & 1:
-            result = convolve_window(result, power, 0, result.size + power.size - 1)
+            result = _full_convolution(result, power)
         n >>= 1
         if n:
-            power = convolve_window(power, power, 0, 2 * power.size - 1)
+            power = _full_convolution(power, power)
     return result
 
 
@@ -378,28 +386,27 @@ def _refined_bounds(portfolio: Portfolio, x: float, cells: int) -> tuple[float, 
     sum (on the grid, the lower one shifted by one cell per claim) and V the independent sum of
     the N residuals; only the N cells below the threshold need V, the rest is A's tail.
     """
-    if not all(isinstance(line.paid_count, Fixed | Binomial) for line in portfolio.lines):
+    trials = [_trials(line.paid_count) for line in portfolio.lines]
+    if any(n is None for n in trials):
         return None
-    claims = sum(
-        c.n if isinstance(c, Fixed) else c.trials
-        for c in (line.paid_count for line in portfolio.lines)
-        if isinstance(c, Fixed | Binomial)
-    )
+    counts = [int(n or 0) for n in trials]
+    claims = sum(counts)
     if claims == 0:
         return 0.0, 0.0
     sub = int(min(_SUB_MAX, max(8, _SUB_WORK // cells), max(8, _SUB_SUM // claims)))
+    if claims * sub > 4 * _SUB_SUM:
+        return None  # so many claims that the residual sum would cost more than it saves
     grid = Grid.with_top(top=x, cells=cells)
-    parts = [_line_split(line, grid, sub) for line in portfolio.lines]
-    splits = [part for part in parts if part is not None]
-    if sum(n * split.gap for split, n in splits) >= sum(n * split.plain_gap for split, n in splits):
+    splits = [_line_split(line, grid, sub) for line in portfolio.lines]
+    pairs = list(zip(splits, counts, strict=True))
+    if sum(n * s.gap for s, n in pairs) >= sum(n * s.plain_gap for s, n in pairs):
         return None  # e.g. a binomial with few paid claims: plain rounding is tighter
-    upper_sum = _product([convolution_power(s.upper_lattice(), n) for s, n in splits])
-    lower_sum = _product([convolution_power(s.lower_lattice(claims), n) for s, n in splits])
-    v_hi = _residual_sum(splits[0][0].residual_up, splits[0][1])
-    v_lo = _residual_sum(splits[0][0].residual_low, splits[0][1])
-    for split, n in splits[1:]:
-        v_hi = np.convolve(v_hi, _residual_sum(split.residual_up, n))
-        v_lo = np.convolve(v_lo, _residual_sum(split.residual_low, n))
+    upper_sum = _product([convolution_power(s.upper_lattice(), n) for s, n in pairs])
+    lower_sum = _product([convolution_power(s.lower_lattice(claims), n) for s, n in pairs])
+    v_hi, v_lo = np.ones(1), np.ones(1)
+    for split, n in pairs:
+        v_hi = _full_convolution(v_hi, _residual_sum(split.residual_up, n))
+        v_lo = _full_convolution(v_lo, _residual_sum(split.residual_low, n))
     near = np.arange(max(0, cells - claims), cells + 1, dtype=np.int64)
     upper = upper_sum.beyond + float(
         np.dot(upper_sum.pmf[near], _survival(v_hi, (cells - near) * sub))
@@ -421,6 +428,8 @@ class AggregateBounds:
 
     For every y on the grid P(S_lower > y) <= P(S > y) <= P(S_upper > y); the mass beyond the
     top is `tail_low` / `tail_up`. Between grid points the bounds step outward (exceedance()).
+    These are the plain rounding bounds for the whole law; the tighter within-cell refinement
+    is built for one threshold at a time (exceedance_bounds).
     """
 
     grid: Grid
@@ -552,7 +561,7 @@ def exceedance_bounds(
             lower, upper = refined
         estimates = [_nearest_estimate(portfolio, x, n_cells // d) for d in (1, 2, 4)]
         point = min(max(_romberg(*estimates), lower), upper)
-        out.append((lower, upper, point))
+        out.append((float(lower), float(upper), float(point)))
     return out
 
 

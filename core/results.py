@@ -60,3 +60,48 @@ class ExceedanceResult:
     std_dev: float
     estimates: list[ExceedanceEstimate]
     warnings: list[str] = field(default_factory=list)
+
+
+@dataclass(frozen=True, kw_only=True)
+class RuinEstimate(Estimate):
+    """The ruin probability at one capital u (psi(u), or psi(u, T) with a horizon).
+
+    approximation: the classical approximation at u beside the estimate: Cramer-Lundberg
+    C exp(-gamma u) for light tails, the subexponential asymptotic for heavy ones (None where
+    there is none).
+    """
+
+    capital: float
+    approximation: float | None = None
+    method: str = ""
+
+    @property
+    def probability(self) -> float:
+        return self.value
+
+
+@dataclass(frozen=True, kw_only=True)
+class CapitalForTarget:
+    """The smallest capital whose ruin probability is at most `target`, with the capitals where
+    the 95% band's lower and upper edges reach the target (None where no capital was found)."""
+
+    target: float
+    capital: float | None
+    ci_low: float | None
+    ci_high: float | None
+
+
+@dataclass(frozen=True, kw_only=True)
+class RuinResult:
+    method: str
+    method_reason: str
+    seed: int
+    elapsed_s: float
+    stopped_by: str
+    premium_rate: float
+    horizon: float | None
+    adjustment_coefficient: float | None
+    lundberg_constant: float | None
+    estimates: list[RuinEstimate]
+    capital_for_target: CapitalForTarget | None = None
+    warnings: list[str] = field(default_factory=list)

@@ -12,9 +12,12 @@ from service.errors import install_error_handlers
 from service.examples import load_examples
 from service.executor import ComputePool
 from service.metrics import Metrics, MetricsMiddleware, route_templates
-from service.routes import exceedance, health, metrics
+from service.routes import exceedance, health, layers, metrics, risk_measures, runs
 from service.schemas.exceedance import ExceedanceRequest
+from service.schemas.layers import LayersRequest
+from service.schemas.risk_measures import RiskMeasuresRequest
 from service.settings import Settings
+from service.worker import RunWorker
 
 DESCRIPTION = """\
 Tail-risk figures of a portfolio loss model from variance-reduced Monte Carlo: exceedance
@@ -30,24 +33,32 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     settings = settings if settings is not None else Settings()
     instruments = Metrics()
     pool = ComputePool(kind=settings.executor, workers=settings.workers, metrics=instruments)
+    runs_worker = RunWorker(settings=settings, pool=pool, metrics=instruments)
 
     @asynccontextmanager
     async def lifespan(_: FastAPI) -> AsyncIterator[None]:
         settings.data_dir.mkdir(parents=True, exist_ok=True)
         pool.start()
         try:
+            await runs_worker.start()  # requeues the items a stopped server left running
             yield
         finally:
+            await runs_worker.stop()
             pool.shutdown()
 
     app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan)
     app.state.settings = settings
     app.state.metrics = instruments
     app.state.pool = pool
+    app.state.runs = runs_worker
     install_error_handlers(app)
     examples = load_examples(settings.examples_dir, "exceedance", ExceedanceRequest)
     routers = [
         exceedance.build_router(examples=examples),
+        risk_measures.build_router(examples=load_examples(
+            settings.examples_dir, "risk_measures", RiskMeasuresRequest)),
+        layers.build_router(examples=load_examples(settings.examples_dir, "layers", LayersRequest)),
+        runs.build_router(examples=runs.run_examples(settings.examples_dir)),
         health.build_router(),
         metrics.build_router(),
     ]

@@ -1,17 +1,29 @@
-"""The ``tailgauge`` command: ``tailgauge serve`` (and, later, ``tailgauge run``)."""
+"""The ``tailgauge`` command: ``tailgauge serve`` and ``tailgauge run``."""
 
 from __future__ import annotations
 
 import argparse
+import asyncio
+import json
+import os
 import sys
+import tempfile
+import time
 from collections.abc import Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING, Any, TextIO
 
 from pydantic import ValidationError
 
 from service.settings import Settings
 
-NOT_YET = 2  # exit status of a subcommand that exists in the interface but not yet in code
+if TYPE_CHECKING:
+    from service.schemas.runs import RunBatchIn, RunOut
+    from service.store import ItemRecord, RunRecord
+
+# Exit status of tailgauge run: every item done / some item failed / nothing could be run.
+RUN_OK, RUN_ITEM_FAILED, RUN_UNUSABLE = 0, 1, 2
+BAR_WIDTH = 30
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -24,9 +36,15 @@ def _parser() -> argparse.ArgumentParser:
     serve.add_argument("--port", type=int, help="TCP port (default 8000)")
     serve.add_argument("--data-dir", type=Path, help="directory for the service's files")
     serve.add_argument("--workers", type=int, help="size of the computation pool")
-    run = commands.add_parser("run", help="run a batch file without a server (not yet available)")
+    run = commands.add_parser(
+        "run", help="run a batch file (the body of POST /v1/runs) without a server",
+        description="Exit status: 0 every item done, 1 some item failed (the others are in "
+        "the output), 2 the batch could not be read or is malformed.",
+    )
     run.add_argument("batch", type=Path, metavar="BATCH.json")
-    run.add_argument("--out", type=Path, required=True, metavar="RESULTS.json")
+    run.add_argument("--out", type=Path, required=True, metavar="RESULTS.json",
+                     help="where to write the results (the body of GET /v1/runs/{run_id})")
+    run.add_argument("--workers", type=int, help="size of the computation pool")
     return parser
 
 
@@ -46,12 +64,137 @@ def _serve(args: argparse.Namespace) -> int:
     return 0
 
 
+def _where(loc: Sequence[Any]) -> str:
+    return ".".join(str(part) for part in loc) or "batch"
+
+
+class ProgressReport:
+    """Progress of a batch on ``stream``: a one-line bar redrawn with \\r on a terminal, one
+    plain line per finished item otherwise (cron mail, log files)."""
+
+    def __init__(self, stream: TextIO) -> None:
+        self.stream = stream
+        self.bar = stream.isatty()
+        self.started = time.monotonic()
+        self.failures: list[str] = []
+
+    def start(self, run: RunRecord) -> None:
+        if not self.bar:
+            self._line(f"run '{run.name}': {run.progress.total} items")
+        self._draw(run)
+
+    def item(self, item: ItemRecord, run: RunRecord) -> None:
+        p = run.progress
+        note = f"{item.item_id} ({item.kind}) {item.status}"
+        if item.error:
+            first = item.error[0]
+            note += f": {_where(first['loc'])}: {first['msg']}"
+            self.failures.append(note)
+        if self.bar:
+            self._draw(run)
+        else:
+            self._line(f"[{p.finished}/{p.total}] {note}")
+
+    def finish(self, view: RunOut, out: Path) -> None:
+        p = view.progress
+        if self.bar:
+            self.stream.write("\n")
+            for failure in self.failures:
+                self._line(f"failed: {failure}")
+        self._line(f"{view.status}: {p.done - p.failed} done, {p.failed} failed of {p.total} in "
+                   f"{time.monotonic() - self.started:.1f} s; results in {out}")
+
+    def _draw(self, run: RunRecord) -> None:
+        if not self.bar:
+            return
+        p = run.progress
+        filled = BAR_WIDTH * p.finished // max(p.total, 1)
+        bar = "#" * filled + "-" * (BAR_WIDTH - filled)
+        failed = f", {p.failed} failed" if p.failed else ""
+        self.stream.write(f"\r[{bar}] {p.finished}/{p.total}{failed} "
+                          f"{time.monotonic() - self.started:5.0f} s")
+        self.stream.flush()
+
+    def _line(self, text: str) -> None:
+        print(f"tailgauge run: {text}", file=self.stream, flush=True)
+
+
+def _read_batch(path: Path, stream: TextIO) -> RunBatchIn | None:
+    from service.schemas.runs import RunBatchIn
+
+    try:
+        body = json.loads(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        print(f"tailgauge run: cannot read {path}: {exc.strerror}", file=stream)
+        return None
+    except ValueError as exc:  # not JSON, or not UTF-8
+        print(f"tailgauge run: {path} is not a JSON file: {exc}", file=stream)
+        return None
+    try:
+        return RunBatchIn.model_validate(body)
+    except ValidationError as exc:
+        _rejected(path, [{"loc": e["loc"], "msg": e["msg"]} for e in exc.errors()], stream)
+        return None
+
+
+def _rejected(path: Path, detail: list[dict[str, Any]], stream: TextIO) -> None:
+    print(f"tailgauge run: {path} is not a valid batch:", file=stream)
+    for entry in detail:
+        loc = [part for part in entry["loc"] if part != "body"]
+        print(f"  {_where(loc)}: {entry['msg']}", file=stream)
+
+
+def _write_atomically(path: Path, body: dict[str, Any]) -> None:
+    # A reader (the next job in the schedule) sees the old file or the whole new one.
+    path.parent.mkdir(parents=True, exist_ok=True)
+    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.")
+    with os.fdopen(handle, "w", encoding="utf-8") as out:
+        json.dump(body, out, indent=2, allow_nan=False)
+        out.write("\n")
+    os.replace(temporary, path)
+
+
+async def run_batch_file(
+    batch_path: Path, out_path: Path, *, settings: Settings, stream: TextIO
+) -> int:
+    """``tailgauge run``: compute the batch, write the results, return the exit status."""
+    from service.worker import BatchRejected, run_locally
+
+    batch = _read_batch(batch_path, stream)
+    if batch is None:
+        return RUN_UNUSABLE
+    report = ProgressReport(stream)
+    try:
+        view = await run_locally(batch, settings=settings, on_start=report.start,
+                                 on_item=report.item)
+    except BatchRejected as exc:
+        _rejected(batch_path, exc.detail, stream)
+        return RUN_UNUSABLE
+    _write_atomically(out_path, view.model_dump(mode="json"))
+    report.finish(view, out_path)
+    return RUN_OK if view.status == "done" else RUN_ITEM_FAILED
+
+
+def _run(args: argparse.Namespace) -> int:
+    given = {"workers": args.workers}
+    try:
+        settings = Settings(**{k: v for k, v in given.items() if v is not None})
+    except ValidationError as exc:
+        print(f"tailgauge run: invalid settings:\n{exc}", file=sys.stderr)
+        return RUN_UNUSABLE
+    try:
+        return asyncio.run(run_batch_file(args.batch, args.out, settings=settings,
+                                          stream=sys.stderr))
+    except KeyboardInterrupt:
+        print("\ntailgauge run: interrupted; no results written", file=sys.stderr)
+        return 130
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     if args.command == "serve":
         return _serve(args)
-    print("tailgauge run: not yet available", file=sys.stderr)
-    return NOT_YET
+    return _run(args)
 
 
 if __name__ == "__main__":

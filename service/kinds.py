@@ -15,8 +15,10 @@ from pydantic import BaseModel
 
 from service.executor import ComputePool
 from service.metrics import Metrics
-from service.routes import exceedance
+from service.routes import exceedance, layers, risk_measures
 from service.schemas.exceedance import ExceedanceRequest, ExceedanceResponse
+from service.schemas.layers import LayersRequest, LayersResponse
+from service.schemas.risk_measures import RiskMeasuresRequest, RiskMeasuresResponse
 from service.settings import Settings
 
 Handler = Callable[[BaseModel, Settings, ComputePool, Metrics], Awaitable[BaseModel]]
@@ -34,5 +36,7 @@ KINDS: dict[str, Kind] = {
     kind.name: kind
     for kind in (
         Kind("exceedance", ExceedanceRequest, ExceedanceResponse, exceedance.handle),
+        Kind("risk_measures", RiskMeasuresRequest, RiskMeasuresResponse, risk_measures.handle),
+        Kind("layers", LayersRequest, LayersResponse, layers.handle),
     )
 }

@@ -65,3 +65,17 @@ class Settings(BaseSettings):
         default=DEFAULT_EXAMPLES_DIR,
         description="Directory of JSON request bodies shown as OpenAPI examples.",
     )
+    # --- batch runs (POST /v1/runs, tailgauge run) ---
+    run_workers: int | None = Field(
+        default=None,
+        ge=1,
+        description="Batch items computed at the same time by the run worker (default: "
+        "workers, the size of the computation pool).",
+    )
+    run_max_attempts: int = Field(
+        default=3,
+        ge=1,
+        description="Times a batch item may be started; an item that was running when the "
+        "server stopped is requeued until then, and then marked failed.",
+    )
+    max_run_items: int = Field(default=1000, ge=1, description="Most items per batch run.")

@@ -12,10 +12,18 @@ from contextlib import contextmanager
 from typing import Any
 
 import core
-from core.errors import TailgaugeError
+from core.errors import MethodError, TailgaugeError
+from core.measures import Interval, Layer, LayerEstimate, MeasureEstimate, TailResult
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
-from service.schemas.common import DiagnosticsOut, LineSpec, PortfolioSpec
+from service.schemas.common import ComputationOut, DiagnosticsOut, LineSpec, PortfolioSpec
 from service.schemas.exceedance import ExceedanceEstimateOut, ExceedanceResponse
+from service.schemas.layers import LayerOut, LayerSpec, LayersResponse
+from service.schemas.risk_measures import (
+    CurvePointOut,
+    LossReturnPeriodOut,
+    MeasureOut,
+    RiskMeasuresResponse,
+)
 
 _SEVERITIES: dict[str, Callable[..., Any]] = {
     "lognormal": core.Lognormal,
@@ -69,6 +77,26 @@ def portfolio(spec: PortfolioSpec) -> core.Portfolio:
     lines = [_line(line, f"portfolio.lines[{i}]") for i, line in enumerate(spec.lines)]
     with located("portfolio"):
         return core.Portfolio(lines=lines)
+
+
+def layers(specs: list[LayerSpec]) -> list[Layer]:
+    out = []
+    for i, spec in enumerate(specs):
+        with located(f"layers[{i}]"):
+            out.append(Layer(attachment=spec.attachment, limit=spec.limit))
+    return out
+
+
+def check_finite_means(model: core.Portfolio, figure: str) -> None:
+    """Refuse a line whose paid claims have an infinite mean (e.g. Pareto alpha <= 1 with no
+    per-claim limit) when ``figure`` needs E[S]-type integrals to exist."""
+    for k, line in enumerate(model.lines):
+        if line.paid_count.mean > 0 and not math.isfinite(line.paid_severity.mean):
+            raise MethodError(
+                f"portfolio.lines[{k}].severity",
+                f"has an infinite mean claim, so {figure} does not exist; give the line a "
+                "per-claim limit, or use a lighter tail (e.g. Pareto alpha > 1)",
+            )
 
 
 # --- results -> responses -------------------------------------------------------------------
@@ -139,3 +167,161 @@ def exceedance_response(result: ExceedanceResult, *, warnings: list[str]) -> Exc
 def samples_behind(result: ExceedanceResult) -> int:
     """Samples behind the reported estimates: the largest sample set (pilots excluded)."""
     return max((int(e.samples) for e in result.estimates), default=0)
+
+
+# --- risk measures and layers ---------------------------------------------------------------
+
+# With no sample beyond a point, the same one-sided 95% bound as /v1/exceedance: P <= -ln(0.05)/n
+# (the rule of three for a count of zero).
+NO_HIT_BOUND = -math.log(0.05)
+
+
+def _probability(p: Interval, samples: int) -> tuple[float | None, float | None, float | None]:
+    """(value, ci_low, ci_high) of a probability, clipped to [0, 1]; nothing observed gives
+    0 with a one-sided upper bound rather than "0 +- 0"."""
+    if p.value <= 0.0:
+        return 0.0, 0.0, min(1.0, NO_HIT_BOUND / max(samples, 1))
+    return (
+        finite_or_none(min(p.value, 1.0)),
+        finite_or_none(max(p.ci_low, 0.0)),
+        finite_or_none(min(p.ci_high, 1.0)),
+    )
+
+
+def _reciprocal(p: float | None) -> float | None:
+    return finite_or_none(1.0 / p) if p is not None and p > 0.0 else None
+
+
+def _measure(m: MeasureEstimate) -> MeasureOut:
+    return MeasureOut(
+        level=float(m.level),
+        var=finite_or_none(m.var.value),
+        var_ci_low=finite_or_none(m.var.ci_low),
+        var_ci_high=finite_or_none(m.var.ci_high),
+        tvar=finite_or_none(m.tvar.value),
+        tvar_ci_low=finite_or_none(m.tvar.ci_low),
+        tvar_ci_high=finite_or_none(m.tvar.ci_high),
+        tvar_std_error=finite_or_none(m.tvar.std_error),
+        diagnostics=diagnostics(m.diagnostics),
+    )
+
+
+def _curve_point(period: float, m: MeasureEstimate) -> CurvePointOut:
+    return CurvePointOut(
+        return_period=float(period),
+        probability=1.0 / float(period),
+        loss=finite_or_none(m.var.value),
+        loss_ci_low=finite_or_none(m.var.ci_low),
+        loss_ci_high=finite_or_none(m.var.ci_high),
+        diagnostics=diagnostics(m.diagnostics),
+    )
+
+
+def _loss_point(loss: float, p: Interval, samples: int) -> LossReturnPeriodOut:
+    value, low, high = _probability(p, samples)
+    return LossReturnPeriodOut(
+        loss=float(loss),
+        probability=value,
+        probability_ci_low=low,
+        probability_ci_high=high,
+        std_error=finite_or_none(p.std_error),
+        return_period=_reciprocal(value),
+        return_period_ci_low=_reciprocal(high),
+        return_period_ci_high=_reciprocal(low),
+    )
+
+
+def _computation(result: TailResult, warnings: list[str]) -> dict[str, Any]:
+    return {
+        "engine_version": core.ENGINE_VERSION,
+        "method": result.method,
+        "method_reason": result.method_reason,
+        "seed": int(result.seed),
+        "elapsed_s": finite_or_none(result.elapsed_s),
+        "stopped_by": result.stopped_by,
+        "mean": finite_or_none(result.mean),
+        "std_dev": finite_or_none(result.std_dev),
+        "warnings": [*result.warnings, *warnings],
+        "samples": int(result.samples),
+    }
+
+
+def _warn_if_nulled(response: ComputationOut, figures: list[float | None]) -> None:
+    if any(v is None for v in figures):
+        response.warnings.append(
+            "the engine produced a non-finite figure or interval end; it is reported as null"
+        )
+
+
+def risk_measures_response(
+    result: TailResult, *, n_levels: int, return_periods: list[float], losses: list[float],
+    warnings: list[str],
+) -> RiskMeasuresResponse:
+    """The first ``n_levels`` measures answer ``levels``; the rest, in order, the return
+    periods (VaR at 1 - 1/T), all from the one sample set of ``result``."""
+    by_period = result.measures[n_levels:]
+    response = RiskMeasuresResponse(
+        **_computation(result, warnings),
+        measures=[_measure(m) for m in result.measures[:n_levels]],
+        curve=[_curve_point(t, m) for t, m in zip(return_periods, by_period, strict=True)],
+        loss_return_periods=[
+            _loss_point(x, p, result.samples)
+            for x, p in zip(losses, result.loss_exceedance, strict=True)
+        ],
+    )
+    _warn_if_nulled(response, [
+        *(v for m in response.measures for v in (m.var, m.var_ci_low, m.var_ci_high, m.tvar,
+                                                 m.tvar_ci_low, m.tvar_ci_high)),
+        *(v for c in response.curve for v in (c.loss, c.loss_ci_low, c.loss_ci_high)),
+        *(v for x in response.loss_return_periods
+          for v in (x.probability, x.probability_ci_low, x.probability_ci_high)),
+    ])
+    return response
+
+
+def _layer_name(i: int, e: LayerEstimate) -> str:
+    width = "unlimited" if e.limit is None else f"{e.limit:g}"
+    return f"layers[{i}] ({width} xs {e.attachment:g})"
+
+
+def _layer(i: int, e: LayerEstimate, samples: int, warnings: list[str]) -> LayerOut:
+    attach = _probability(e.probability_attach, samples)
+    exhaust = (None, None, None) if e.probability_exhaust is None else _probability(
+        e.probability_exhaust, samples)
+    loss_low = finite_or_none(e.expected_loss.ci_low)
+    loss_high = finite_or_none(e.expected_loss.ci_high)
+    if e.probability_attach.value <= 0.0:
+        # Nothing reached the layer: its loss is at most limit * P(S > a) <= limit * bound.
+        warnings.append(f"{_layer_name(i, e)}: no sample reached the attachment; the "
+                        "figures are 0 with one-sided upper bounds")
+        loss_low = 0.0
+        loss_high = None if e.limit is None else finite_or_none(e.limit * (attach[2] or 1.0))
+    elif not e.diagnostics.reliable:
+        warnings.append(f"{_layer_name(i, e)}: flagged unreliable: {e.diagnostics.reason}")
+    return LayerOut(
+        attachment=float(e.attachment),
+        limit=None if e.limit is None else float(e.limit),
+        expected_loss=finite_or_none(e.expected_loss.value),
+        expected_loss_ci_low=loss_low,
+        expected_loss_ci_high=loss_high,
+        expected_loss_std_error=finite_or_none(e.expected_loss.std_error),
+        probability_attach=attach[0],
+        probability_attach_ci_low=attach[1],
+        probability_attach_ci_high=attach[2],
+        probability_exhaust=exhaust[0],
+        probability_exhaust_ci_low=exhaust[1],
+        probability_exhaust_ci_high=exhaust[2],
+        diagnostics=diagnostics(e.diagnostics),
+    )
+
+
+def layers_response(result: TailResult, *, warnings: list[str]) -> LayersResponse:
+    notes: list[str] = []
+    layers = [_layer(i, e, result.samples, notes) for i, e in enumerate(result.layers)]
+    response = LayersResponse(**_computation(result, [*warnings, *notes]), layers=layers)
+    _warn_if_nulled(response, [
+        v for ly in layers
+        for v in (ly.expected_loss, ly.expected_loss_ci_low, ly.probability_attach,
+                  ly.probability_attach_ci_low, ly.probability_attach_ci_high)
+    ])
+    return response

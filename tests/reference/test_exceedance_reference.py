@@ -158,3 +158,17 @@ def test_crude_with_no_hits_reports_a_one_sided_bound_not_zero_plus_minus_zero()
     # Rule of three (common practice): a 95% upper bound of about 3/n with no events seen.
     assert est.ci_high == pytest.approx(3.0 / 1_000, rel=0.01)
     assert not est.diagnostics.reliable
+
+
+def test_recursion_method_brackets_the_gamma_law():
+    # Reference: 10 iid gamma(2, 1) claims sum to gamma(20, 1) (scipy.stats.gamma); the
+    # recursion's ci_low/ci_high are rigorous bounds and std_error is null.
+    port = single(Fixed(n=10), Gamma(shape=2.0, scale=1.0))
+    xs = [30.0, 50.0]
+    res = exceedance(port, xs, method="recursion")
+    for est in res.estimates:
+        exact = float(stats.gamma(20.0).sf(est.threshold))
+        assert est.std_error is None
+        assert est.ci_low <= exact <= est.ci_high
+        assert est.ci_low <= est.probability <= est.ci_high
+        assert abs(est.probability / exact - 1.0) < 1e-6

@@ -48,3 +48,79 @@ def test_examples_are_named_in_the_openapi_document(client):
         shown = examples[path.stem.removeprefix("exceedance_")]
         assert shown["value"] == json.loads(path.read_text(encoding="utf-8"))
         assert shown["summary"]
+
+
+# --- risk measures and layers ------------------------------------------------------------------
+
+RISK_MEASURES_FILES = sorted(DEFAULT_EXAMPLES_DIR.glob("risk_measures_*.json"))
+LAYERS_FILES = sorted(DEFAULT_EXAMPLES_DIR.glob("layers_*.json"))
+
+
+def _ordered(low: float, value: float, high: float) -> bool:
+    return low <= value <= high
+
+
+def test_there_are_risk_measures_and_layers_examples():
+    assert len(RISK_MEASURES_FILES) >= 2 and len(LAYERS_FILES) >= 2
+
+
+@pytest.mark.parametrize("path", RISK_MEASURES_FILES, ids=lambda p: p.stem)
+def test_risk_measures_example_answers_with_sensible_figures(client, path: Path):
+    body = json.loads(path.read_text(encoding="utf-8"))
+    response = client.post("/v1/risk-measures", json=body)
+    assert response.status_code == 200, response.text
+    result = response.json()
+    assert result["seed"] == body["seed"]
+    measures = result["measures"]
+    assert [m["level"] for m in measures] == body["levels"]
+    for m in measures:
+        assert _ordered(m["var_ci_low"], m["var"], m["var_ci_high"])
+        assert _ordered(m["tvar_ci_low"], m["tvar"], m["tvar_ci_high"])
+        assert m["tvar"] >= m["var"]  # common practice: TVaR is the mean beyond VaR
+    # One sample set: VaR cannot fall as the level rises, nor the loss as the return period.
+    by_level = [m["var"] for m in sorted(measures, key=lambda m: m["level"])]
+    assert by_level == sorted(by_level)
+    curve = sorted(result["curve"], key=lambda c: c["return_period"])
+    assert [c["return_period"] for c in result["curve"]] == body.get("return_periods", [])
+    assert [c["loss"] for c in curve] == sorted(c["loss"] for c in curve)
+    for c in curve:
+        assert _ordered(c["loss_ci_low"], c["loss"], c["loss_ci_high"])
+    for point in result["loss_return_periods"]:
+        assert 0.0 <= point["probability_ci_low"] <= point["probability"]
+        assert point["probability"] <= point["probability_ci_high"] <= 1.0
+
+
+@pytest.mark.parametrize("path", LAYERS_FILES, ids=lambda p: p.stem)
+def test_layers_example_answers_with_sensible_figures(client, path: Path):
+    body = json.loads(path.read_text(encoding="utf-8"))
+    response = client.post("/v1/layers", json=body)
+    assert response.status_code == 200, response.text
+    result = response.json()
+    assert result["seed"] == body["seed"]
+    layers = result["layers"]
+    assert [(ly["attachment"], ly["limit"]) for ly in layers] == [
+        (ly["attachment"], ly.get("limit")) for ly in body["layers"]
+    ]
+    for ly in layers:
+        assert ly["expected_loss"] >= 0.0
+        assert _ordered(ly["expected_loss_ci_low"], ly["expected_loss"],
+                        ly["expected_loss_ci_high"])
+        assert 0.0 <= ly["probability_attach_ci_low"] <= ly["probability_attach"]
+        assert ly["probability_attach"] <= ly["probability_attach_ci_high"] <= 1.0
+        if ly["limit"] is not None:
+            # A limited layer loses at most its limit, and is exhausted only once attached.
+            assert ly["expected_loss"] <= ly["limit"] * ly["probability_attach"] * (1 + 1e-12)
+            assert ly["probability_exhaust"] <= ly["probability_attach"]
+
+
+@pytest.mark.parametrize(("route", "resource", "files"), [
+    ("/v1/risk-measures", "risk_measures", RISK_MEASURES_FILES),
+    ("/v1/layers", "layers", LAYERS_FILES),
+])
+def test_new_examples_are_named_in_the_openapi_document(client, route, resource, files):
+    operation = client.get("/openapi.json").json()["paths"][route]["post"]
+    examples = operation["requestBody"]["content"]["application/json"]["examples"]
+    assert set(examples) == {p.stem.removeprefix(f"{resource}_") for p in files}
+    for path in files:
+        assert examples[path.stem.removeprefix(f"{resource}_")]["value"] == json.loads(
+            path.read_text(encoding="utf-8"))

@@ -1,0 +1,411 @@
+"""The run worker: takes queued batch items from the run store and computes them.
+
+Items run as asyncio tasks in the service process (``run_workers`` at a time), each calling
+``KINDS[kind].handle`` (exactly what the synchronous endpoint runs) through the app's
+ComputePool. An item's outcome is committed the moment it finishes. At start-up, items a
+stopped server left running are requeued (or failed after ``run_max_attempts`` starts); at a
+clean shutdown, running items go back to the queue without counting the attempt.
+
+The same worker runs ``tailgauge run`` with a throw-away in-memory store.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import hashlib
+import json
+import logging
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, replace
+from typing import Any
+
+from prometheus_client import Counter
+from pydantic import BaseModel, ValidationError
+
+import core
+from core.errors import TailgaugeError
+from service.compute import draw_seed
+from service.errors import (
+    ComputationUnavailable,
+    detail_entry,
+    error_type,
+    parameter_loc,
+    validation_entry,
+)
+from service.executor import ComputePool
+from service.kinds import KINDS, Kind
+from service.metrics import Metrics
+from service.schemas.runs import (
+    ProgressOut,
+    RunBatchIn,
+    RunItemCancelled,
+    RunItemDone,
+    RunItemFailed,
+    RunItemIn,
+    RunOut,
+    RunSummary,
+)
+from service.settings import Settings
+from service.store import (
+    STORE_FILE,
+    ItemRecord,
+    NewItem,
+    RunRecord,
+    RunStore,
+    SqliteRunStore,
+)
+
+log = logging.getLogger("tailgauge.runs")
+
+IDLE_POLL_S = 1.0  # an idle slot looks at the queue this often even without a wake-up
+TERMINAL = frozenset({"done", "failed", "cancelled"})
+
+ItemCallback = Callable[[ItemRecord, RunRecord], None]
+
+
+class BatchRejected(Exception):
+    """The batch as a whole is malformed: 422 with these detail entries."""
+
+    def __init__(self, detail: list[dict[str, Any]]) -> None:
+        super().__init__("; ".join(entry["msg"] for entry in detail))
+        self.detail = detail
+
+
+class IdempotencyConflict(Exception):
+    """The idempotency key names an earlier run of a different batch."""
+
+    def __init__(self, run_id: str) -> None:
+        super().__init__(run_id)
+        self.run_id = run_id
+
+
+# --- submission ---------------------------------------------------------------------------
+
+
+def batch_hash(batch: RunBatchIn) -> str:
+    """Fingerprint of the batch as sent (before seeds are drawn), for idempotent resubmission."""
+    canonical = json.dumps(batch.model_dump(mode="json"), sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(canonical.encode()).hexdigest()
+
+
+def _check_batch(batch: RunBatchIn, kinds: Mapping[str, Kind], settings: Settings) -> None:
+    problems: list[dict[str, Any]] = []
+    if len(batch.items) > settings.max_run_items:
+        problems.append(detail_entry(
+            ["body", "items"],
+            f"holds {len(batch.items)} items; at most {settings.max_run_items} are allowed "
+            "(server limit max_run_items)",
+            "limit_exceeded",
+        ))
+    first: dict[str, int] = {}
+    for i, item in enumerate(batch.items):
+        if item.kind not in kinds:
+            offered = ", ".join(sorted(kinds))
+            problems.append(detail_entry(
+                ["body", "items", i, "kind"],
+                f"kind '{item.kind}' is not available on this server yet (available: {offered})",
+                "kind_unavailable",
+            ))
+        if item.id in first:
+            problems.append(detail_entry(
+                ["body", "items", i, "id"],
+                f"duplicate id '{item.id}' (also items[{first[item.id]}].id); ids must be unique "
+                "within a batch",
+                "duplicate_id",
+            ))
+        first.setdefault(item.id, i)
+    if problems:
+        raise BatchRejected(problems)
+
+
+def validate_request(kind: Kind, request: Any) -> BaseModel:
+    # The mode FastAPI validates a request body in, so that the errors are the endpoint's.
+    return kind.request.model_validate(request, from_attributes=True)
+
+
+def _with_seed(item: RunItemIn, kind: Kind) -> NewItem:
+    """Draw the seed of a request that gives none, so that a repeat of the run is exact."""
+    request = item.request
+    try:
+        parsed = validate_request(kind, request)
+    except ValidationError:
+        return NewItem(item_id=item.id, kind=item.kind, request=request, seed=None)
+    seed = getattr(parsed, "seed", None)
+    if seed is None and isinstance(request, dict):
+        seed = draw_seed()
+        request = {**request, "seed": seed}
+    return NewItem(item_id=item.id, kind=item.kind, request=request, seed=seed)
+
+
+def prepare_batch(
+    batch: RunBatchIn, *, kinds: Mapping[str, Kind], settings: Settings
+) -> list[NewItem]:
+    """Check the batch as a whole (BatchRejected) and fix every item's seed."""
+    _check_batch(batch, kinds, settings)
+    return [_with_seed(item, kinds[item.kind]) for item in batch.items]
+
+
+# --- views ----------------------------------------------------------------------------------
+
+
+def summary(run: RunRecord) -> RunSummary:
+    p = run.progress
+    return RunSummary(
+        run_id=run.run_id, name=run.name, status=run.status,
+        progress=ProgressOut(done=p.finished, total=p.total, failed=p.failed,
+                             running=p.running, queued=p.queued, cancelled=p.cancelled),
+        engine_version=run.engine_version, created_at=run.created_at, updated_at=run.updated_at,
+    )
+
+
+def _item_out(item: ItemRecord) -> RunItemDone | RunItemFailed | RunItemCancelled | None:
+    common = {"id": item.item_id, "kind": item.kind, "seed": item.seed, "status": item.status}
+    if item.status == "done":
+        return RunItemDone.model_validate({
+            **common, "attempts": item.attempts, "engine_version": item.engine_version or "",
+            "result": item.result or {},
+        })
+    if item.status == "failed":
+        return RunItemFailed.model_validate(
+            {**common, "attempts": item.attempts, "error": item.error or []}
+        )
+    if item.status == "cancelled":
+        return RunItemCancelled.model_validate(common)
+    return None  # queued or running: not finished
+
+
+def run_view(run: RunRecord, items: list[ItemRecord]) -> RunOut:
+    """The body of GET /v1/runs/{run_id} (and of tailgauge run's output file)."""
+    results = [out for out in map(_item_out, items) if out is not None]
+    return RunOut(**summary(run).model_dump(), results=results)
+
+
+def batch_view(run: RunRecord, items: list[ItemRecord]) -> RunBatchIn:
+    """The batch as stored, seeds included: submitting it again repeats the run exactly."""
+    return RunBatchIn(name=run.name, items=[
+        RunItemIn(id=item.item_id, kind=item.kind, request=item.request)  # type: ignore[arg-type]
+        for item in items
+    ])
+
+
+# --- computing one item ---------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Outcome:
+    result: dict[str, Any] | None = None
+    error: list[dict[str, Any]] | None = None
+    retry: bool = False  # the pool lost a worker: try the item again
+
+
+def _failed(loc: list[str | int], msg: str, type_: str) -> Outcome:
+    return Outcome(error=[detail_entry(loc, msg, type_)])
+
+
+async def compute_item(
+    item: ItemRecord, *, kinds: Mapping[str, Kind], settings: Settings, pool: ComputePool,
+    metrics: Metrics,
+) -> Outcome:
+    """The synchronous endpoint's body for the item's request, or its 422 detail list."""
+    kind = kinds.get(item.kind)
+    if kind is None:  # offered at submission, gone after an upgrade
+        return _failed(["body"], f"kind '{item.kind}' is not available on this server",
+                       "kind_unavailable")
+    try:
+        request = validate_request(kind, item.request)
+    except ValidationError as exc:
+        # The same entries as the endpoint's 422: locations start at "body".
+        return Outcome(error=[
+            validation_entry({**e, "loc": ("body", *e["loc"])}) for e in exc.errors()
+        ])
+    try:
+        response: BaseModel = await kind.handle(request, settings, pool, metrics)
+    except TailgaugeError as exc:
+        return _failed(parameter_loc(exc.parameter), exc.message, error_type(exc))
+    except ComputationUnavailable as exc:
+        if exc.kind == "worker_lost" and item.attempts < settings.run_max_attempts:
+            return Outcome(retry=True)
+        return _failed(exc.loc, exc.message, exc.kind)
+    except Exception as exc:  # a bug: fail this item, keep the batch going
+        log.exception("batch item %s of run %s raised", item.item_id, item.run_id)
+        return _failed([], f"internal error ({type(exc).__name__})", "internal_error")
+    return Outcome(result=response.model_dump(mode="json", by_alias=True))
+
+
+# --- the worker -----------------------------------------------------------------------------
+
+
+def default_store(settings: Settings) -> RunStore:
+    settings.data_dir.mkdir(parents=True, exist_ok=True)
+    return SqliteRunStore(path=settings.data_dir / STORE_FILE)
+
+
+class RunWorker:
+    """Owns the run store while started; ``run_workers`` slots take items from its queue."""
+
+    def __init__(
+        self, *, settings: Settings, pool: ComputePool, metrics: Metrics,
+        kinds: Mapping[str, Kind] | None = None,
+        store_factory: Callable[[], RunStore] | None = None,
+        on_item: ItemCallback | None = None,
+    ) -> None:
+        self.settings = settings
+        self.pool = pool
+        self.metrics = metrics
+        self.kinds = KINDS if kinds is None else kinds
+        self.slots = settings.run_workers or settings.workers
+        self._store_factory = store_factory or (lambda: default_store(settings))
+        self._on_item = on_item
+        self._store: RunStore | None = None
+        self._tasks: list[asyncio.Task[None]] = []
+        self._wake = asyncio.Event()
+        self._changed = asyncio.Event()
+        self._stopping = False
+        self.finished = Counter(
+            "tailgauge_run_items_finished",
+            "Batch items finished by the run worker, by kind and status (done or failed).",
+            ["kind", "status"],
+            registry=metrics.registry,
+        )
+
+    @property
+    def store(self) -> RunStore:
+        if self._store is None:
+            raise RuntimeError("the run worker is not started")
+        return self._store
+
+    async def start(self) -> None:
+        self._stopping = False
+        self._wake, self._changed = asyncio.Event(), asyncio.Event()  # bound to this loop
+        self._store = await asyncio.to_thread(self._store_factory)
+        recovery = await asyncio.to_thread(
+            self._store.recover, max_attempts=self.settings.run_max_attempts
+        )
+        if recovery.requeued or recovery.failed:
+            log.warning("runs: requeued %d interrupted items, failed %d after %d attempts",
+                        len(recovery.requeued), len(recovery.failed),
+                        self.settings.run_max_attempts)
+        self._tasks = [asyncio.create_task(self._slot(), name=f"run-slot-{i}")
+                       for i in range(self.slots)]
+
+    async def stop(self) -> None:
+        self._stopping = True
+        for task in self._tasks:
+            task.cancel()
+        await asyncio.gather(*self._tasks, return_exceptions=True)
+        self._tasks = []
+        store, self._store = self._store, None
+        if store is not None:
+            # A clean shutdown is not the item's fault: its attempt is not counted.
+            await asyncio.to_thread(store.release_running)
+            await asyncio.to_thread(store.close)
+
+    def wake(self) -> None:
+        self._wake.set()
+
+    async def submit(
+        self, batch: RunBatchIn, *, idempotency_key: str | None
+    ) -> tuple[RunRecord, bool]:
+        """Store the batch as a new run (or find the run of the same key) and wake the slots."""
+        items = prepare_batch(batch, kinds=self.kinds, settings=self.settings)
+        fingerprint = batch_hash(batch)
+        run, created = await asyncio.to_thread(
+            self.store.create_run, name=batch.name, items=items,
+            engine_version=core.ENGINE_VERSION, batch_hash=fingerprint,
+            idempotency_key=idempotency_key,
+        )
+        if not created and run.batch_hash != fingerprint:
+            raise IdempotencyConflict(run.run_id)
+        self.wake()
+        return run, created
+
+    async def view(self, run_id: str) -> RunOut | None:
+        run = await asyncio.to_thread(self.store.get_run, run_id)
+        if run is None:
+            return None
+        return run_view(run, await asyncio.to_thread(self.store.get_items, run_id))
+
+    async def wait_finished(self, run_id: str) -> RunRecord:
+        """Return once the run is done, failed or cancelled."""
+        while True:
+            self._changed.clear()
+            run = await asyncio.to_thread(self.store.get_run, run_id)
+            if run is None:
+                raise KeyError(run_id)
+            if run.status in TERMINAL and run.progress.running == 0:
+                return run
+            with contextlib.suppress(TimeoutError):
+                await asyncio.wait_for(self._changed.wait(), timeout=IDLE_POLL_S)
+
+    async def _slot(self) -> None:
+        while not self._stopping:
+            try:
+                item = await asyncio.to_thread(self.store.claim_next)
+                if item is None:
+                    await self._idle()
+                else:
+                    await self._run(item)
+            except asyncio.CancelledError:
+                raise
+            except Exception:  # the store failed (disk full...): log, back off, go on
+                log.exception("run worker slot failed")
+                await asyncio.sleep(IDLE_POLL_S)
+
+    async def _idle(self) -> None:
+        with contextlib.suppress(TimeoutError):
+            await asyncio.wait_for(self._wake.wait(), timeout=IDLE_POLL_S)
+        self._wake.clear()
+
+    async def _run(self, item: ItemRecord) -> None:
+        outcome = await compute_item(
+            item, kinds=self.kinds, settings=self.settings, pool=self.pool, metrics=self.metrics
+        )
+        if outcome.retry:
+            await asyncio.to_thread(self.store.requeue_item, item, count_attempt=True)
+            return
+        await asyncio.to_thread(
+            self.store.finish_item, item, result=outcome.result, error=outcome.error,
+            engine_version=core.ENGINE_VERSION,
+        )
+        status = "done" if outcome.error is None else "failed"
+        self.finished.labels(item.kind, status).inc()
+        self._changed.set()
+        if self._on_item is not None:
+            run = await asyncio.to_thread(self.store.get_run, item.run_id)
+            if run is not None:
+                self._on_item(_finished_copy(item, status, outcome), run)
+
+
+def _finished_copy(item: ItemRecord, status: str, outcome: Outcome) -> ItemRecord:
+    return replace(item, status=status, result=outcome.result,  # type: ignore[arg-type]
+                   error=outcome.error, engine_version=core.ENGINE_VERSION)
+
+
+# --- without a server (tailgauge run) -------------------------------------------------------
+
+
+async def run_locally(
+    batch: RunBatchIn, *, settings: Settings, on_start: Callable[[RunRecord], None],
+    on_item: ItemCallback, kinds: Mapping[str, Kind] | None = None,
+) -> RunOut:
+    """Run a batch to the end with a pool of its own and an in-memory store (BatchRejected
+    if the batch is malformed); returns the body GET /v1/runs/{run_id} would give."""
+    metrics = Metrics()
+    pool = ComputePool(kind=settings.executor, workers=settings.workers, metrics=metrics)
+    worker = RunWorker(
+        settings=settings, pool=pool, metrics=metrics, kinds=kinds, on_item=on_item,
+        store_factory=lambda: SqliteRunStore(path=":memory:"),
+    )
+    pool.start()
+    try:
+        await worker.start()
+        run, _ = await worker.submit(batch, idempotency_key=None)
+        on_start(run)
+        await worker.wait_finished(run.run_id)
+        view = await worker.view(run.run_id)
+        assert view is not None
+        return view
+    finally:
+        await worker.stop()
+        pool.shutdown()

@@ -102,7 +102,7 @@ def check_levels(levels: Sequence[float]) -> np.ndarray:
     return q
 
 
-def _guess_var(portfolio: Portfolio, q: float) -> float:
+def guess_var(portfolio: Portfolio, q: float) -> float:
     """A rough VaR for placing the pilot grid: the larger of a normal approximation and the
     single-loss approximation (Boecker and Klueppelberg 2005) of the heaviest line."""
     guess = portfolio.mean + float(stats.norm.isf(1.0 - q)) * portfolio.std_dev
@@ -180,7 +180,7 @@ def _var_error(q: np.ndarray, a: np.ndarray) -> object:
 
 
 def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> list[float]:
-    guesses = [_guess_var(portfolio, float(level)) for level in q]
+    guesses = [guess_var(portfolio, float(level)) for level in q]
     a = np.geomspace(max(min(guesses) / 20.0, 1e-9), max(guesses) * 20.0, 160)
     values = sampler("conditional" if name == "conditional_is" else name, portfolio, a,
                      guesses, seed)
@@ -207,6 +207,10 @@ def tail_estimates(
     q = check_levels(levels) if len(levels) else np.zeros(0)
     extra_points = [ly.attachment for ly in layers] + [
         ly.attachment + ly.limit for ly in layers if ly.limit is not None] + list(losses)
+    if method == "recursion":
+        from core.recursion_measures import tail_bounds
+
+        return tail_bounds(portfolio, levels=list(q), layers=layers, losses=losses, seed=seed)
     name, reason = _choose(portfolio, q, extra_points, method, seed)
     anchors = _pilot_vars(name, portfolio, q, seed) if q.size else []
     anchors += [x for x in extra_points if x > 0]
@@ -245,7 +249,7 @@ def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str
             seed: int) -> tuple[str, str]:
     if method != "auto":
         return method, f"{method} requested"
-    points = [_guess_var(portfolio, float(level)) for level in q] + [x for x in extra if x > 0]
+    points = [guess_var(portfolio, float(level)) for level in q] + [x for x in extra if x > 0]
     # The pilot compares estimators at the extreme points only: it costs a pilot per point.
     probe = sorted(points)[:: max(1, len(points) - 1)] if points else [portfolio.mean]
     trials, reason = select.choose(portfolio, np.asarray(probe), seed)

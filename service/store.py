@@ -111,8 +111,8 @@ class RunStore(Protocol):
 
     def get_run(self, run_id: str) -> RunRecord | None: ...
 
-    def get_items(self, run_id: str) -> list[ItemRecord]:
-        """Every item of the run, in batch order."""
+    def read_run(self, run_id: str) -> tuple[RunRecord, list[ItemRecord]] | None:
+        """The run and every item of it in batch order, read as one consistent snapshot."""
         ...
 
     def list_runs(
@@ -283,14 +283,24 @@ class SqliteRunStore:
             ).fetchone()
             return None if row is None else self._run(self._conn, row)
 
-    def get_items(self, run_id: str) -> list[ItemRecord]:
+    def read_run(self, run_id: str) -> tuple[RunRecord, list[ItemRecord]] | None:
         with self._lock:
-            rows = self._conn.execute(
-                f"SELECT {_ITEM_COLUMNS} FROM items i JOIN runs r ON r.seq = i.run_seq "
-                "WHERE r.run_id = ? ORDER BY i.position",
-                (run_id,),
-            ).fetchall()
-        return [_item(row) for row in rows]
+            # One read transaction: the progress counts and the items agree.
+            self._conn.execute("BEGIN")
+            try:
+                row = self._conn.execute(
+                    f"SELECT {_RUN_COLUMNS} FROM runs WHERE run_id = ?", (run_id,)
+                ).fetchone()
+                if row is None:
+                    return None
+                rows = self._conn.execute(
+                    f"SELECT {_ITEM_COLUMNS} FROM items i JOIN runs r ON r.seq = i.run_seq "
+                    "WHERE i.run_seq = ? ORDER BY i.position",
+                    (row[0],),
+                ).fetchall()
+                return self._run(self._conn, row), [_item(r) for r in rows]
+            finally:
+                self._conn.execute("COMMIT")
 
     def list_runs(
         self, *, status: RunStatus | None, limit: int, offset: int, before_seq: int | None

@@ -321,10 +321,8 @@ class RunWorker:
         return run, created
 
     async def view(self, run_id: str) -> RunOut | None:
-        run = await asyncio.to_thread(self.store.get_run, run_id)
-        if run is None:
-            return None
-        return run_view(run, await asyncio.to_thread(self.store.get_items, run_id))
+        snapshot = await asyncio.to_thread(self.store.read_run, run_id)
+        return None if snapshot is None else run_view(*snapshot)
 
     async def wait_finished(self, run_id: str) -> RunRecord:
         """Return once the run is done, failed or cancelled."""

@@ -1,0 +1,6 @@
+"""Ruin probabilities of the classical compound Poisson surplus process."""
+
+from core.ruin.api import RUIN_METHODS, ruin
+from core.ruin.process import SurplusProcess
+
+__all__ = ["RUIN_METHODS", "SurplusProcess", "ruin"]

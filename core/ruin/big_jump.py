@@ -115,7 +115,7 @@ class JumpRegime:
         sev, lam = process.net_severity, process.claim_rate
         drift = process.premium - lam * process.mean_claim
         value = integrate.quad(lambda t: float(sev.sf(max(u + drift * t, 0.0))), 0.0, horizon,
-                               limit=200)[0]
+                               limit=200, epsabs=0.0, epsrel=1e-10)[0]
         return lam * value
 
     def estimate(self, capitals: np.ndarray, stream: int) -> Batch:

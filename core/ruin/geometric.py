@@ -22,7 +22,6 @@ from core.integrated_tail import IntegratedTail
 from core.portfolio import Line, Portfolio
 from core.ruin import report
 from core.ruin.capital import Bracket
-from core.ruin.lundberg import lundberg_constant
 from core.ruin.process import SurplusProcess
 from core.ruin.runner import Batch, Context
 
@@ -42,8 +41,6 @@ class GeometricRegime:
         self.ctx, self.method = ctx, method
         self.portfolio = geometric_sum(ctx.process)
         self.integrated = self.portfolio.lines[0].severity
-        gamma = ctx.gamma
-        self.constant = lundberg_constant(ctx.process, gamma) if gamma is not None else None
         self.name = method
         self.engine_reason = ""
 
@@ -54,9 +51,9 @@ class GeometricRegime:
                 f"rho = {rho:.6g}, estimated by the exceedance engine ({self.engine_reason})")
 
     def approximation(self, u: float) -> float | None:
-        gamma = self.ctx.gamma
-        if gamma is not None and self.constant is not None:
-            return math.exp(math.log(self.constant) - gamma * u)
+        gamma, constant = self.ctx.gamma, self.ctx.constant
+        if gamma is not None and constant is not None:
+            return math.exp(math.log(constant) - gamma * u)
         if self.integrated.tail != "heavy":
             return None
         rho = self.ctx.process.rho
@@ -65,8 +62,8 @@ class GeometricRegime:
     def estimate(self, capitals: np.ndarray, stream: int) -> Batch:
         ctx = self.ctx
         method = self.method if stream == 0 else _GRID_METHOD.get(self.method, "conditional")
-        res = exceedance(self.portfolio, capitals, method=method, precision=ctx.remaining(),
-                         seed=ctx.seed)
+        res = exceedance(self.portfolio, capitals.tolist(), method=method,
+                         precision=ctx.remaining(), seed=ctx.seed)
         if stream == 0:
             self.name, self.engine_reason = res.method, res.method_reason
         out = [report.from_exceedance(e, self.approximation(e.threshold)) for e in res.estimates]

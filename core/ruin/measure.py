@@ -6,8 +6,8 @@ for a law without a closed-form tilted sampler (a claim capped by a retention, s
 tilt of core.sampling is used: z(y) is the reference point of y's cell and W its stepwise
 cumulant. Either way the likelihood ratio of a path stopped at a claim instant tau is exact:
 
-    dP/dQ = prod_i [lambda e^{-lambda A_i} f(X_i)] / [lambda W e^{-lambda W A_i} f(X_i) e^{a z_i} / W]
-          = exp(-a sum_i z_i + lambda (W(a) - 1) tau),
+    dP/dQ = prod_i [lambda e^{-lambda A_i} f(X_i)] / [lambda W e^{-lambda W A_i} g(X_i)]
+          = exp(-a sum_i z_i + lambda (W(a) - 1) tau),   g(y) = f(y) e^{a z(y)} / W,
 
 so each claim contributes (its log f/g) - log W + lambda (W - 1) A_i to log dP/dQ. Siegmund's
 algorithm takes a with lambda (W(a) - 1) = c a; then log dP/dQ = -a (sum z_i - c tau), which for

@@ -27,6 +27,7 @@ class Context:
     seed: int
     deadline: float | None
     gamma: float | None  # the adjustment coefficient, where there is one
+    constant: float | None  # the Cramer-Lundberg constant C, with gamma
 
     def remaining(self) -> Precision:
         """The precision with its time limit cut to what is left of the request's."""

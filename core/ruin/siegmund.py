@@ -22,7 +22,7 @@ import numpy as np
 from core.results import RuinEstimate
 from core.ruin import report
 from core.ruin.capital import Bracket
-from core.ruin.lundberg import doob_capital, horizon_tilt, lundberg_constant
+from core.ruin.lundberg import doob_capital, horizon_tilt
 from core.ruin.measure import ClaimTilt, claim_tilt, exact_tilt, siegmund_tilt
 from core.ruin.paths import PATHS_PER_BLOCK, PathPlan, passage_values
 from core.ruin.runner import TILTED_PATHS, Batch, Context, run, stream_id
@@ -36,7 +36,6 @@ class PathRegime:
         self.siegmund: ClaimTilt | None = None
         if tilted and gamma is not None:
             self.siegmund = siegmund_tilt(process, gamma)
-        self.constant = lundberg_constant(process, gamma) if gamma is not None else None
 
     @property
     def reason(self) -> str:
@@ -69,9 +68,10 @@ class PathRegime:
         return claim_tilt(sev, a)
 
     def approximation(self, u: float) -> float | None:
-        if self.constant is None or self.ctx.gamma is None or math.isfinite(self.ctx.horizon):
+        ctx = self.ctx
+        if ctx.constant is None or ctx.gamma is None or math.isfinite(ctx.horizon):
             return None
-        return math.exp(math.log(self.constant) - self.ctx.gamma * u)
+        return math.exp(math.log(ctx.constant) - ctx.gamma * u)
 
     def bracket(self, target: float) -> Bracket | None:
         ctx = self.ctx

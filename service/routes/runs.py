@@ -155,10 +155,10 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
     async def get_run_batch(run_id: str, worker: WorkerDep) -> RunBatchIn:
         """The batch as stored, with the seed of every item: POST it again to repeat the run
         exactly (same engine version, same figures)."""
-        run = await asyncio.to_thread(worker.store.get_run, run_id)
-        if run is None:
+        snapshot = await asyncio.to_thread(worker.store.read_run, run_id)
+        if snapshot is None:
             raise _not_found(run_id)
-        return batch_view(run, await asyncio.to_thread(worker.store.get_items, run_id))
+        return batch_view(*snapshot)
 
     @router.delete("/runs/{run_id}", response_model=RunOut, summary="Cancel a run",
                    responses=_NOT_FOUND)

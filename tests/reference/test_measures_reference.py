@@ -127,3 +127,26 @@ def test_var_relative_half_width_targets_with_1e5_samples():
     for m in res.measures:
         assert (m.var.ci_high - m.var.ci_low) / 2 / m.var.value <= 0.005
         assert (m.tvar.ci_high - m.tvar.ci_low) / 2 / m.tvar.value <= 0.01
+
+
+def test_recursion_bounds_bracket_exact_var_tvar_and_layers():
+    # References: gamma(40, 1) for the sum of 20 gamma(2, 1) claims (scipy.stats.gamma, TVaR
+    # closed form as above); the Poisson mixture of gamma stop-loss transforms for layers.
+    port = single(Fixed(n=20), Gamma(shape=2.0, scale=1.0))
+    res = tail_estimates(port, levels=LEVELS, method="recursion")
+    law = stats.gamma(40.0)
+    for m in res.measures:
+        v = float(law.ppf(m.level))
+        tvar = 40.0 * float(stats.gamma(41.0).sf(v)) / (1.0 - m.level)
+        assert m.var.ci_low <= v <= m.var.ci_high
+        assert m.tvar.ci_low <= tvar <= m.tvar.ci_high
+        assert m.var.std_error is None
+    port = single(Poisson(mean=3.0), Exponential(mean=2.0))
+    layers = [Layer(attachment=10.0, limit=10.0), Layer(attachment=20.0, limit=None)]
+    res = tail_estimates(port, layers=layers, method="recursion")
+    for est in res.layers:
+        top = est.attachment + (est.limit or np.inf)
+        exact = poisson_gamma_stop_loss(3.0, 2.0, est.attachment) - (
+            poisson_gamma_stop_loss(3.0, 2.0, top) if np.isfinite(top) else 0.0)
+        assert est.expected_loss.ci_low <= exact <= est.expected_loss.ci_high
+        assert est.expected_loss.ci_high - est.expected_loss.ci_low < 0.01 * exact

@@ -8,7 +8,6 @@ import os
 import pty
 import shutil
 import subprocess
-from pathlib import Path
 from typing import Any
 
 import pytest

@@ -155,6 +155,12 @@ def _new_run(store: SqliteRunStore, n: int = 2) -> str:
     return run.run_id
 
 
+def _items(store: SqliteRunStore, run_id: str) -> list[Any]:
+    snapshot = store.read_run(run_id)
+    assert snapshot is not None
+    return snapshot[1]
+
+
 def test_the_store_file_is_in_wal_mode(store):
     assert store.journal_mode == "wal"
 
@@ -171,7 +177,7 @@ def test_an_interrupted_item_is_requeued_then_failed_at_the_attempt_limit(store,
     store.close()
     store = SqliteRunStore(path=tmp_path / STORE_FILE)
     assert store.recover(max_attempts=3).failed == [(run_id, "i0")]
-    [item] = store.get_items(run_id)
+    [item] = _items(store, run_id)
     assert item.status == "failed" and item.attempts == 3
     assert item.error is not None and item.error[0]["type"] == "interrupted"
     assert "run_max_attempts" in item.error[0]["msg"]
@@ -186,7 +192,7 @@ def test_a_finished_result_is_never_overwritten(store):
     assert store.finish_item(item, result={"v": 1}, error=None, engine_version="test")
     assert not store.finish_item(item, result={"v": 2}, error=None, engine_version="test")
     assert store.recover(max_attempts=1).requeued == []
-    [kept] = store.get_items(run_id)
+    [kept] = _items(store, run_id)
     assert kept.result == {"v": 1} and kept.status == "done"
 
 
@@ -194,7 +200,7 @@ def test_a_clean_shutdown_does_not_count_the_attempt(store):
     run_id = _new_run(store, n=1)
     assert store.claim_next() is not None
     assert store.release_running() == 1
-    [item] = store.get_items(run_id)
+    [item] = _items(store, run_id)
     assert item.status == "queued" and item.attempts == 0
 
 
@@ -204,5 +210,5 @@ def test_an_item_running_when_its_run_was_cancelled_is_not_run_again(store):
     cancelled = store.cancel_run(run_id)
     assert cancelled is not None and cancelled.progress.cancelled == 1
     store.recover(max_attempts=3)  # the server died before the running item finished
-    assert [i.status for i in store.get_items(run_id)] == ["cancelled", "cancelled"]
+    assert [i.status for i in _items(store, run_id)] == ["cancelled", "cancelled"]
     assert store.claim_next() is None

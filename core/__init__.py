@@ -6,9 +6,18 @@ Pure computation (numpy and scipy only); the service layer wraps it over HTTP.
 from core.counts import Binomial, ClaimCount, Fixed, NegativeBinomial, Poisson
 from core.errors import LimitError, MethodError, ParameterError, TailgaugeError
 from core.exceedance import METHODS, exceedance
+from core.integrated_tail import IntegratedTail
 from core.portfolio import Line, Portfolio
 from core.precision import Precision
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
+from core.ruin import (
+    RUIN_METHODS,
+    CapitalForTarget,
+    RuinEstimate,
+    RuinResult,
+    SurplusProcess,
+    ruin,
+)
 from core.severities import (
     Capped,
     Excess,
@@ -27,7 +36,9 @@ ENGINE_VERSION = "0.1.0"
 __all__ = [
     "ENGINE_VERSION",
     "METHODS",
+    "RUIN_METHODS",
     "Binomial",
+    "CapitalForTarget",
     "Capped",
     "ClaimCount",
     "Diagnostics",
@@ -38,6 +49,7 @@ __all__ = [
     "Fixed",
     "Gamma",
     "GeneralizedPareto",
+    "IntegratedTail",
     "LimitError",
     "Line",
     "Lognormal",
@@ -49,8 +61,12 @@ __all__ = [
     "Poisson",
     "Portfolio",
     "Precision",
+    "RuinEstimate",
+    "RuinResult",
     "Severity",
+    "SurplusProcess",
     "TailgaugeError",
     "Weibull",
     "exceedance",
+    "ruin",
 ]

@@ -7,6 +7,7 @@ import time
 from collections.abc import Sequence
 
 import numpy as np
+from scipy.stats import beta
 
 from core.diagnostics import ContributionStats
 from core.errors import ParameterError
@@ -61,9 +62,14 @@ def _estimate(
             diagnostics=diag, method=method,
         )
     se = float(np.asarray(stats.std_error())[col])
+    low, high = max(0.0, p - Z95 * se), min(1.0, p + Z95 * se)
+    if method == "crude":
+        # A count of hits: the exact (Clopper-Pearson) interval, honest even for few hits.
+        low = float(beta.ppf(0.025, hits, samples - hits + 1))
+        high = float(beta.ppf(0.975, hits + 1, samples - hits)) if hits < samples else 1.0
     return ExceedanceEstimate(
         threshold=x, value=p, std_error=se, relative_error=se / p,
-        ci_low=max(0.0, p - Z95 * se), ci_high=min(1.0, p + Z95 * se), samples=samples,
+        ci_low=min(low, p), ci_high=max(high, p), samples=samples,
         hits=hits, diagnostics=diag, method=method,
     )
 

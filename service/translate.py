@@ -58,6 +58,16 @@ def engine_error_path(exc: TailgaugeError) -> TailgaugeError:
     return exc
 
 
+def renamed(exc: TailgaugeError, engine_name: str, request_name: str) -> TailgaugeError:
+    """An engine error about its own list of points (``engine_name``, index included) pointed
+    at the request field those points come from; other errors are kept."""
+    if exc.parameter == engine_name or exc.parameter.startswith(
+        (f"{engine_name}.", f"{engine_name}[")
+    ):
+        return type(exc)(request_name, exc.message)
+    return exc
+
+
 def _line(spec: LineSpec, path: str) -> core.Line:
     with located(f"{path}.count"):
         count = _COUNTS[spec.count.kind](**spec.count.model_dump(exclude={"kind"}))
@@ -176,11 +186,17 @@ def samples_behind(result: ExceedanceResult) -> int:
 NO_HIT_BOUND = -math.log(0.05)
 
 
+def _nothing_observed(p: Interval, samples: int) -> bool:
+    """A sampled probability of 0 with a zero-width interval: no sample reached the point.
+    (The deterministic method reports samples = 0; its 0 is a rigorous bound.)"""
+    return samples > 0 and p.value <= 0.0 and p.ci_high <= 0.0
+
+
 def _probability(p: Interval, samples: int) -> tuple[float | None, float | None, float | None]:
     """(value, ci_low, ci_high) of a probability, clipped to [0, 1]; nothing observed gives
     0 with a one-sided upper bound rather than "0 +- 0"."""
-    if p.value <= 0.0:
-        return 0.0, 0.0, min(1.0, NO_HIT_BOUND / max(samples, 1))
+    if _nothing_observed(p, samples):
+        return 0.0, 0.0, min(1.0, NO_HIT_BOUND / samples)
     return (
         finite_or_none(min(p.value, 1.0)),
         finite_or_none(max(p.ci_low, 0.0)),
@@ -290,7 +306,7 @@ def _layer(i: int, e: LayerEstimate, samples: int, warnings: list[str]) -> Layer
         e.probability_exhaust, samples)
     loss_low = finite_or_none(e.expected_loss.ci_low)
     loss_high = finite_or_none(e.expected_loss.ci_high)
-    if e.probability_attach.value <= 0.0:
+    if _nothing_observed(e.probability_attach, samples):
         # Nothing reached the layer: its loss is at most limit * P(S > a) <= limit * bound.
         warnings.append(f"{_layer_name(i, e)}: no sample reached the attachment; the "
                         "figures are 0 with one-sided upper bounds")

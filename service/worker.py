@@ -283,9 +283,9 @@ class RunWorker:
             self._store.recover, max_attempts=self.settings.run_max_attempts
         )
         if recovery.requeued or recovery.failed:
-            log.warning("runs: requeued %d interrupted items, failed %d after %d attempts",
-                        len(recovery.requeued), len(recovery.failed),
-                        self.settings.run_max_attempts)
+            log.warning("runs: %d interrupted items requeued, %d failed (started "
+                        "run_max_attempts=%d times)", len(recovery.requeued),
+                        len(recovery.failed), self.settings.run_max_attempts)
         self._tasks = [asyncio.create_task(self._slot(), name=f"run-slot-{i}")
                        for i in range(self.slots)]
 

@@ -2,7 +2,7 @@
 
 import json
 
-from bench import run
+from bench import run, service
 
 
 def test_bench_runs_on_a_tiny_budget(capsys):
@@ -11,3 +11,10 @@ def test_bench_runs_on_a_tiny_budget(capsys):
     assert "Hard regime" in printed
     data = json.loads((run.OUT / "results.json").read_text())
     assert len(data["hard_regime"]) == 12
+
+
+def test_service_bench_runs_on_a_tiny_budget(capsys):
+    assert service.main(["--quick"]) == 0
+    assert "Service overhead" in capsys.readouterr().out
+    data = json.loads((service.OUT / "service_quick.json").read_text())
+    assert data["throughput"]["failed"] == 0 and data["overhead"]["ratio"] > 0

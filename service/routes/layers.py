@@ -14,6 +14,7 @@ from fastapi import APIRouter, Body
 from pydantic import BaseModel
 
 from core import measures
+from core.errors import TailgaugeError
 from service import compute, limits, translate
 from service.deps import MetricsDep, PoolDep, SettingsDep
 from service.executor import ComputePool
@@ -39,16 +40,20 @@ async def handle(
             translate.check_finite_means(
                 job.portfolio, f"the expected loss of the unlimited layers[{i}]"
             )
-    result = await compute.run_engine(
-        pool,
-        measures.tail_estimates,
-        job.portfolio,
-        wall_limit_s=job.budget.wall_limit_s,
-        layers=translate.layers(body.layers),
-        method=body.method,
-        precision=job.budget.precision,
-        seed=job.seed,
-    )
+    try:
+        result = await compute.run_engine(
+            pool,
+            measures.tail_estimates,
+            job.portfolio,
+            wall_limit_s=job.budget.wall_limit_s,
+            layers=translate.layers(body.layers),
+            method=body.method,
+            precision=job.budget.precision,
+            seed=job.seed,
+        )
+    except TailgaugeError as exc:
+        # The engine names its points (the layers' ends) "thresholds".
+        raise translate.renamed(exc, "thresholds", "layers") from exc
     metrics.samples.labels("layers").inc(int(result.samples))
     notes = job.budget.warnings + job.budget.stop_warnings(
         result.stopped_by, body.precision.relative_error

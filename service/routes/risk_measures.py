@@ -14,6 +14,7 @@ from fastapi import APIRouter, Body
 from pydantic import BaseModel
 
 from core import measures
+from core.errors import TailgaugeError
 from service import compute, limits, translate
 from service.deps import MetricsDep, PoolDep, SettingsDep
 from service.executor import ComputePool
@@ -48,17 +49,23 @@ async def handle(
     )
     # Return period T is the VaR at level 1 - 1/T: one call, one sample set for everything.
     levels = [*body.levels, *(1.0 - 1.0 / t for t in body.return_periods)]
-    result = await compute.run_engine(
-        pool,
-        measures.tail_estimates,
-        job.portfolio,
-        wall_limit_s=job.budget.wall_limit_s,
-        levels=levels,
-        losses=body.losses,
-        method=body.method,
-        precision=job.budget.precision,
-        seed=job.seed,
-    )
+    try:
+        result = await compute.run_engine(
+            pool,
+            measures.tail_estimates,
+            job.portfolio,
+            wall_limit_s=job.budget.wall_limit_s,
+            levels=levels,
+            losses=body.losses,
+            method=body.method,
+            precision=job.budget.precision,
+            seed=job.seed,
+        )
+    except TailgaugeError as exc:
+        # The engine names its grid points "thresholds"; the farthest point (a loss, else a
+        # level's VaR) is what such an error is about.
+        field = "losses" if body.losses else "levels" if body.levels else "return_periods"
+        raise translate.renamed(exc, "thresholds", field) from exc
     metrics.samples.labels("risk_measures").inc(int(result.samples))
     notes = job.budget.warnings + job.budget.stop_warnings(
         result.stopped_by, body.precision.relative_error

@@ -101,6 +101,20 @@ def test_layer_figures_match_the_poisson_gamma_mixture(client):
     assert result["mean"] == pytest.approx(lam * mean, rel=1e-12)  # E[N] E[X]
 
 
+def test_recursion_bounds_bracket_the_poisson_gamma_mixture(client):
+    # method=recursion: rigorous lower and upper bounds, no standard error, no samples.
+    result = client.post(ROUTE, json=_request(method="recursion")).json()
+    assert result["method"] == "recursion" and result["warnings"] == []
+    for out in result["layers"]:
+        a, limit = out["attachment"], out["limit"]
+        top_loss = 0.0 if limit is None else _stop_loss(3.0, 2.0, a + limit)
+        exact = _stop_loss(3.0, 2.0, a) - top_loss
+        assert out["expected_loss_ci_low"] <= exact <= out["expected_loss_ci_high"]
+        attach = _exceedance(3.0, 2.0, a)
+        assert out["probability_attach_ci_low"] <= attach <= out["probability_attach_ci_high"]
+        assert out["expected_loss_std_error"] is None
+
+
 def test_adjacent_layers_add_up_to_the_combined_layer(client):
     # Fact of the trade: 10 xs 10 plus 10 xs 20 is 20 xs 10; on one sample set, per-sample
     # additivity leaves only rounding between the two sides.

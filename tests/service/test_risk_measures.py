@@ -11,6 +11,8 @@ from typing import Any
 import pytest
 from scipy import stats
 
+from core.errors import LimitError, ParameterError
+from service import translate
 from service.kinds import KINDS
 from service.schemas.risk_measures import RiskMeasuresRequest
 
@@ -239,8 +241,31 @@ def test_infinite_mean_line_with_a_per_claim_limit_is_accepted(client):
     assert response.status_code == 200, response.text
 
 
-def test_recursion_is_refused_for_risk_measures(client):
-    response = client.post(ROUTE, json=_request(method="recursion"))
-    assert response.status_code == 422
-    assert response.json() == _error(
-        ["body", "method"], "recursion cannot estimate risk measures", "method_error")
+def test_recursion_bounds_bracket_the_gamma_law(client):
+    # method=recursion: ci_low / ci_high are rigorous bounds (claims rounded down and up), so
+    # the closed forms of the gamma(40, 1) sum (scipy.stats.gamma; TVaR as above) must lie
+    # inside them, and there is no standard error.
+    body = _request(method="recursion", levels=[0.99, 0.999], return_periods=[500.0],
+                    losses=[60.0])
+    result = client.post(ROUTE, json=body).json()
+    assert result["method"] == "recursion" and result["samples"] == 0
+    law = stats.gamma(40.0)
+    for m in result["measures"]:
+        v = float(law.ppf(m["level"]))
+        tvar = 40.0 * float(stats.gamma(41.0).sf(v)) / (1.0 - m["level"])
+        assert m["var_ci_low"] <= v <= m["var_ci_high"]
+        assert m["tvar_ci_low"] <= tvar <= m["tvar_ci_high"]
+        assert m["tvar_std_error"] is None
+    (point,) = result["curve"]
+    assert point["loss_ci_low"] <= float(law.ppf(1.0 - 1.0 / 500.0)) <= point["loss_ci_high"]
+    (loss,) = result["loss_return_periods"]
+    assert loss["probability_ci_low"] <= float(law.sf(60.0)) <= loss["probability_ci_high"]
+    assert loss["std_error"] is None
+
+
+def test_engine_errors_about_its_grid_points_name_the_request_field():
+    # The engine calls its points "thresholds"; a risk-measures request has none.
+    error = translate.renamed(LimitError("thresholds.3", "too far out"), "thresholds", "losses")
+    assert (type(error), error.parameter, error.message) == (LimitError, "losses", "too far out")
+    other = ParameterError("precision.samples", "x")
+    assert translate.renamed(other, "thresholds", "losses") is other

@@ -19,8 +19,8 @@ import pytest
 
 from service.store import STORE_FILE, NewItem, SqliteRunStore
 
-ITEMS = 12
-SLOW_SAMPLES = 1_000_000  # about 0.4 s per item on one core: a kill lands mid-run
+ITEMS = 8
+SLOW_SAMPLES = 600_000  # about 0.25 s per item on one core: a kill lands mid-run
 
 
 def _free_port() -> int:

@@ -35,6 +35,10 @@ class LayersRequest(PortfolioRequest):
 
 
 class LayerOut(BaseModel):
+    """With method recursion every *_ci_low / *_ci_high is a rigorous lower / upper bound
+    (claims rounded down / up), the headline figure lies between them and standard errors are
+    null."""
+
     attachment: float = Field(description="Attachment point a in money units.")
     limit: float | None = Field(description="Limit in money units; null = unlimited.")
     expected_loss: float | None = Field(
@@ -49,7 +53,8 @@ class LayerOut(BaseModel):
         "nothing reached an unlimited layer (no finite bound can be read off the samples)."
     )
     expected_loss_std_error: float | None = Field(
-        description="Standard error of the expected loss in money units."
+        description="Standard error of the expected loss in money units; null for "
+        "recursion."
     )
     probability_attach: float | None = Field(
         description="Probability that the layer is hit in a period, P(S > a)."

@@ -57,6 +57,10 @@ class RiskMeasuresRequest(PortfolioRequest):
 
 
 class MeasureOut(BaseModel):
+    """With method recursion every *_ci_low / *_ci_high is a rigorous lower / upper bound
+    (claims rounded down / up), the headline figure lies between them and standard errors are
+    null."""
+
     level: float = Field(description="Confidence level q, in (0, 1).")
     var: float | None = Field(
         description="Value-at-risk VaR_q: the q-quantile of the portfolio loss S, in money units."
@@ -78,7 +82,8 @@ class MeasureOut(BaseModel):
         description="Upper end of the 95% confidence interval of TVaR_q, in money units."
     )
     tvar_std_error: float | None = Field(
-        description="Standard error of TVaR_q in money units (delta method)."
+        description="Standard error of TVaR_q in money units (delta method); null for "
+        "recursion."
     )
     diagnostics: DiagnosticsOut = Field(
         description="How far the error bar of the exceedance estimate at VaR_q can be trusted."
@@ -86,6 +91,10 @@ class MeasureOut(BaseModel):
 
 
 class CurvePointOut(BaseModel):
+    """With method recursion every *_ci_low / *_ci_high is a rigorous lower / upper bound
+    (claims rounded down / up), the headline figure lies between them and standard errors are
+    null."""
+
     return_period: float = Field(description="Return period T in years (periods), > 1.")
     probability: float = Field(description="Annual exceedance probability 1 / T.")
     loss: float | None = Field(
@@ -105,6 +114,10 @@ class CurvePointOut(BaseModel):
 
 
 class LossReturnPeriodOut(BaseModel):
+    """With method recursion every *_ci_low / *_ci_high is a rigorous lower / upper bound
+    (claims rounded down / up), the headline figure lies between them and standard errors are
+    null."""
+
     loss: float = Field(description="Loss amount x in money units.")
     probability: float | None = Field(
         description="Estimated exceedance probability P(S > x), in [0, 1]."
@@ -116,7 +129,9 @@ class LossReturnPeriodOut(BaseModel):
         description="Upper end of the 95% confidence interval of P(S > x); with no sample "
         "beyond x, a one-sided 95% upper bound."
     )
-    std_error: float | None = Field(description="Standard error of P(S > x).")
+    std_error: float | None = Field(
+        description="Standard error of P(S > x); null for recursion."
+    )
     return_period: float | None = Field(
         description="Return period 1 / P(S > x) in years (periods); null when nothing beyond "
         "x was observed (the return period is then at least return_period_ci_low)."

@@ -50,8 +50,8 @@ def check_seed(seed: int | None) -> int:
 
 def _estimate(
     x: float, stats: ContributionStats, col: int, samples: int, method: str,
+    diag: Diagnostics,
 ) -> ExceedanceEstimate:
-    diag: Diagnostics = stats.diagnose()[col]
     p = float(np.asarray(stats.mean())[col])
     hits = int(np.asarray(stats.hits)[col])
     if hits == 0 or p <= 0.0:
@@ -88,8 +88,9 @@ def _run(
         stream = gid + (select.METHOD_STREAM[name] << 24)
         run: GroupRun = run_group(group, block, precision, seed, stream, deadline)
         stops.append(run.stopped_by)
+        diags = run.stats.diagnose()
         for col, i in enumerate(group.indices):
-            out[i] = _estimate(float(x[i]), run.stats, col, run.samples, name)
+            out[i] = _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col])
     return out, stops
 
 

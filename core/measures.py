@@ -200,28 +200,54 @@ def tail_estimates(
     seed: int | None = None,
 ) -> TailResult:
     """VaR and TVaR at `levels`, `layers` losses and P(S > loss) for `losses`, from one
-    sample set."""
+    sample set. With `auto`, a result with a figure flagged unreliable is redone with the
+    next candidate (at most one per estimator family), and the first fully reliable one is
+    kept; when none is, the first is returned with its flags."""
     start = time.monotonic()
     seed = check_seed(seed)
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
-    extra_points = [ly.attachment for ly in layers] + [
-        ly.attachment + ly.limit for ly in layers if ly.limit is not None] + list(losses)
     if method == "recursion":
         from core.recursion_measures import tail_bounds
 
         return tail_bounds(portfolio, levels=list(q), layers=layers, losses=losses, seed=seed)
-    name, reason = _choose(portfolio, q, extra_points, method, seed)
+    names, reason = _choose(portfolio, q, _extra_points(layers, losses), method, seed)
+    first: TailResult | None = None
+    for name in names:
+        result = _estimate(name, portfolio, q, layers, losses, precision, seed, start, reason)
+        if first is None:
+            first = result
+        if _all_reliable(result):
+            if result is not first:
+                result.warnings.insert(0, f"{first.method} was flagged unreliable; "
+                                          f"re-estimated with {name}")
+            return result
+    assert first is not None
+    return first
+
+
+def _extra_points(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:
+    return [ly.attachment for ly in layers] + [
+        ly.attachment + ly.limit for ly in layers if ly.limit is not None] + list(losses)
+
+
+def _all_reliable(result: TailResult) -> bool:
+    return all(m.diagnostics.reliable for m in result.measures) and all(
+        ly.diagnostics.reliable for ly in result.layers)
+
+
+def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[Layer],
+              losses: Sequence[float], precision: Precision, seed: int, start: float,
+              reason: str) -> TailResult:
     anchors = _pilot_vars(name, portfolio, q, seed) if q.size else []
-    anchors += [x for x in extra_points if x > 0]
+    anchors += [x for x in _extra_points(layers, losses) if x > 0]
     anchors = anchors or [portfolio.mean]
     spread = 0.05
     warnings: list[str] = []
     for attempt in range(3):
         a = _grid(anchors, spread)
-        result = _run(name, portfolio, a, q, layers, losses, anchors, precision, seed,
-                      start)
-        curves, run = result
+        curves, run = _run(name, portfolio, a, q, layers, losses, anchors, precision, seed,
+                           start)
         missing = [float(level) for level in q if None in curves.var(float(level))]
         if not missing:
             break
@@ -237,6 +263,10 @@ def tail_estimates(
     for m in measures:
         if not m.diagnostics.reliable:
             warnings.append(f"level {m.level:g}: flagged unreliable: {m.diagnostics.reason}")
+    for ly in layer_out:
+        if not ly.diagnostics.reliable:
+            warnings.append(f"layer {ly.attachment:g} xs: flagged unreliable: "
+                            f"{ly.diagnostics.reason}")
     return TailResult(
         method=name, method_reason=reason, seed=seed, elapsed_s=time.monotonic() - start,
         stopped_by=run.stopped_by, samples=run.samples, mean=portfolio.mean,
@@ -246,14 +276,15 @@ def tail_estimates(
 
 
 def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str,
-            seed: int) -> tuple[str, str]:
+            seed: int) -> tuple[list[str], str]:
+    """Candidate names, best first, and the reason in words."""
     if method != "auto":
-        return method, f"{method} requested"
+        return [method], f"{method} requested"
     points = [guess_var(portfolio, float(level)) for level in q] + [x for x in extra if x > 0]
     # The pilot compares estimators at the extreme points only: it costs a pilot per point.
     probe = sorted(points)[:: max(1, len(points) - 1)] if points else [portfolio.mean]
     trials, reason = select.choose(portfolio, np.asarray(probe), seed)
-    return trials[0].name, reason
+    return [t.name for t in trials], reason
 
 
 def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start):

@@ -108,26 +108,37 @@ def _log_gamma_q_cf(a: float, x: _Floats) -> _Floats:
     """log of the regularized upper incomplete gamma Q(a, x) for x > a + 1.
 
     Continued fraction of Gamma(a, x) (modified Lentz), kept in log space: scipy's gammaincc
-    underflows to 0 below about 1e-308, this does not.
+    underflows to 0 below about 1e-308, this does not. Elements leave the iteration as they
+    converge (far out it takes a handful of steps); x = inf gives -inf.
     """
+    x = np.asarray(x, dtype=np.float64)
+    out = np.full(x.shape, -math.inf)
+    live = np.flatnonzero(np.isfinite(x))
+    if live.size == 0:
+        return out
     tiny = 1e-300
-    b = x + 1.0 - a
-    c = np.full_like(x, 1.0 / tiny)
+    xs = x[live]
+    b = xs + 1.0 - a
+    c = np.full_like(xs, 1.0 / tiny)
     d = 1.0 / b
     h = d.copy()
+    active = np.arange(xs.size)
     for i in range(1, 2000):
         an = -i * (i - a)
-        b = b + 2.0
-        d = an * d + b
-        d = np.where(np.abs(d) < tiny, tiny, d)
-        c = b + an / c
-        c = np.where(np.abs(c) < tiny, tiny, c)
-        d = 1.0 / d
-        delta = d * c
-        h = h * delta
-        if np.all(np.abs(delta - 1.0) < 1e-16):
+        b[active] = b[active] + 2.0
+        dd = an * d[active] + b[active]
+        dd = np.where(np.abs(dd) < tiny, tiny, dd)
+        cc = b[active] + an / c[active]
+        cc = np.where(np.abs(cc) < tiny, tiny, cc)
+        dd = 1.0 / dd
+        delta = dd * cc
+        d[active], c[active] = dd, cc
+        h[active] = h[active] * delta
+        active = active[np.abs(delta - 1.0) >= 1e-16]
+        if active.size == 0:
             break
-    return np.asarray(-x + a * np.log(x) - special.gammaln(a) + np.log(h))
+    out[live] = -xs + a * np.log(xs) - special.gammaln(a) + np.log(h)
+    return out
 
 
 def _log1m_exp(log_p: _Floats) -> _Floats:
@@ -1243,6 +1254,8 @@ class Excess(Severity):
         if self._log_sf_retention < math.log(0.05):
             return super()._sample(size, rng)
         total = int(np.prod(size))
+        if total == 0:
+            return np.zeros(size)
         kept: list[np.ndarray] = []
         have = 0
         while have < total:

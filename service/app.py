@@ -21,7 +21,8 @@ from service.worker import RunWorker
 
 DESCRIPTION = """\
 Tail-risk figures of a portfolio loss model from variance-reduced Monte Carlo: exceedance
-probabilities, each with a 95% interval, the seed that reproduces it and the precision reached.
+probabilities, value-at-risk and tail value-at-risk, return-period losses and aggregate layer
+losses, each with a 95% interval, the seed that reproduces it and the precision reached.
 
 **Cautions.** Model risk dominates sampling error: the intervals cover the sampling error of
 the stated model only. Results are estimates for that model, not advice. Capital and reserving

@@ -24,7 +24,7 @@ from service.settings import Settings
 Handler = Callable[[BaseModel, Settings, ComputePool, Metrics], Awaitable[BaseModel]]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, kw_only=True)
 class Kind:
     name: str  # "exceedance" | "risk_measures" | "layers" | "ruin"
     request: type[BaseModel]  # the endpoint's request model
@@ -35,8 +35,11 @@ class Kind:
 KINDS: dict[str, Kind] = {
     kind.name: kind
     for kind in (
-        Kind("exceedance", ExceedanceRequest, ExceedanceResponse, exceedance.handle),
-        Kind("risk_measures", RiskMeasuresRequest, RiskMeasuresResponse, risk_measures.handle),
-        Kind("layers", LayersRequest, LayersResponse, layers.handle),
+        Kind(name="exceedance", request=ExceedanceRequest, response=ExceedanceResponse,
+             handle=exceedance.handle),
+        Kind(name="risk_measures", request=RiskMeasuresRequest,
+             response=RiskMeasuresResponse, handle=risk_measures.handle),
+        Kind(name="layers", request=LayersRequest, response=LayersResponse,
+             handle=layers.handle),
     )
 }

@@ -5,8 +5,10 @@ but claim c, that event has probability Fbar_c(max(M_-c, x - S_-c)). With random
 sum over claims becomes E[N_j] times the same quantity with line j's count replaced by its
 size-biased law minus one, so one sample needs one evaluation per threshold. The line that holds
 the conditioned claim is drawn with probability E[N_j] / sum_k E[N_k] over the conditioned
-lines (those whose paid claims have no atom, i.e. no per-claim limit). Samples in which no
-conditioned line has a claim are covered exactly by the term P(N_H = 0) P(S_L > x).
+lines: the heavy-tailed lines without a per-claim limit (an atom at the limit would break the
+"which claim is the largest" partition), or every line without a limit when none is heavy.
+Samples in which no conditioned line has a claim are covered exactly by the term
+P(N_H = 0) P(S_L > x).
 
 The `conditional_is` variant adds importance sampling on top: the other claims of the
 conditioned lines are drawn from a capped exponential tilt e^{theta min(y, c)} and their counts
@@ -44,7 +46,11 @@ class Conditioning:
     def __init__(self, portfolio: Portfolio) -> None:
         self.portfolio = portfolio
         lines = portfolio.lines
-        self.heavy = [k for k, ln in enumerate(lines) if not isinstance(ln.paid_severity, Capped)]
+        atomless = [k for k, ln in enumerate(lines) if not isinstance(ln.paid_severity, Capped)]
+        # Conditioning pays on heavy-tailed claims; on a light line among heavy ones it only
+        # adds variance (its claim rarely decides the event), so such lines are carried along.
+        heavy = [k for k in atomless if lines[k].paid_severity.tail == "heavy"]
+        self.heavy = heavy or atomless
         if not self.heavy:
             raise MethodError(
                 "method",

@@ -19,6 +19,7 @@ capital: it is returned with a warning, without simulation.
 from __future__ import annotations
 
 import math
+import numbers
 import time
 from collections.abc import Sequence
 
@@ -43,7 +44,10 @@ Regime = PathRegime | GeometricRegime | JumpRegime
 
 
 def _capitals(values: Sequence[float]) -> np.ndarray:
-    u = np.asarray(values, dtype=float)
+    try:
+        u = np.asarray(values, dtype=float)
+    except (TypeError, ValueError):
+        raise ParameterError("capital", "must be a non-empty list of numbers") from None
     if u.ndim != 1 or u.size == 0:
         raise ParameterError("capital", "must be a non-empty list of numbers")
     for i, v in enumerate(u):
@@ -55,7 +59,7 @@ def _capitals(values: Sequence[float]) -> np.ndarray:
 def _horizon(horizon: float | None) -> float:
     if horizon is None:
         return math.inf
-    if isinstance(horizon, bool) or not isinstance(horizon, int | float):
+    if isinstance(horizon, bool) or not isinstance(horizon, numbers.Real):
         raise ParameterError("horizon", f"must be a number, got {horizon!r}")
     if not (math.isfinite(horizon) and horizon > 0):
         raise ParameterError("horizon", f"must be finite and > 0, got {horizon!r}")
@@ -65,7 +69,7 @@ def _horizon(horizon: float | None) -> float:
 def _target(target: float | None) -> float | None:
     if target is None:
         return None
-    if isinstance(target, bool) or not isinstance(target, int | float) or not 0 < target < 1:
+    if isinstance(target, bool) or not isinstance(target, numbers.Real) or not 0 < target < 1:
         raise ParameterError("target_probability", f"must be in (0, 1), got {target!r}")
     return float(target)
 

@@ -28,15 +28,17 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import integrate
 
+from core.errors import LimitError
 from core.ruin import report
+from core.ruin.approximations import approximation
 from core.ruin.capital import Bracket
 from core.ruin.process import SurplusProcess
 from core.ruin.runner import JUMP_PATHS, Batch, Context, run, stream_id
 
 _CELLS_PER_BLOCK = 1 << 20  # paths x claims kept in memory at once
 _MIN_BLOCK, _MAX_BLOCK = 64, 4096
+_MAX_CLAIMS = 200_000  # expected claims per path: beyond, a block of 64 paths outgrows memory
 
 
 @dataclass(frozen=True)
@@ -105,22 +107,15 @@ class JumpRegime:
         return ("conditional Monte Carlo on the surplus path (Asmussen-Kroese, largest claim "
                 "integrated out; Mecke formula for the Poisson claim times)")
 
-    def approximation(self, u: float) -> float | None:
-        """One big jump: lambda int_0^T sf(u + (c - lambda mu) t) dt, the process drifting at
-        its mean until the jump (the finite-horizon subexponential asymptotic, from memory);
-        as T grows it tends to rho / (1 - rho) sf_I(u)."""
-        process, horizon = self.ctx.process, self.ctx.horizon
-        if process.net_severity.tail != "heavy":
-            return None
-        sev, lam = process.net_severity, process.claim_rate
-        drift = process.premium - lam * process.mean_claim
-        value = integrate.quad(lambda t: float(sev.sf(max(u + drift * t, 0.0))), 0.0, horizon,
-                               limit=200, epsabs=0.0, epsrel=1e-10)[0]
-        return lam * value
-
     def estimate(self, capitals: np.ndarray, stream: int) -> Batch:
         ctx = self.ctx
         plan = JumpPlan(ctx.process, np.asarray(capitals, dtype=float), ctx.horizon)
+        if plan.mean_claims > _MAX_CLAIMS:
+            raise LimitError(
+                "horizon",
+                f"claim rate x horizon = {plan.mean_claims:.3g} expected claims per path is more "
+                f"than the limit of {_MAX_CLAIMS:g}; ask for a shorter horizon",
+            )
 
         def values(m: int, rng: np.random.Generator) -> np.ndarray:
             return jump_values(plan, m, rng)
@@ -128,10 +123,11 @@ class JumpRegime:
         result = run(ctx, tuple(range(capitals.size)), values,
                      work=plan.mean_claims + 4.0 * capitals.size, block=plan.block(),
                      purpose=JUMP_PATHS, stream=stream_id(stream, 0))
+        diags = result.stats.diagnose()
         out = [
-            report.estimate(result.stats, i, capital=float(u), samples=result.samples,
-                            method=self.name, bound=plan.bound,
-                            approximation=self.approximation(float(u)))
+            report.estimate(result.stats, i, diag=diags[i], capital=float(u),
+                            samples=result.samples, method=self.name, bound=plan.bound,
+                            approximation=approximation(ctx, float(u)))
             for i, u in enumerate(capitals)
         ]
         return out, [result.stopped_by]

@@ -5,9 +5,6 @@ and I_i independent with the integrated-tail law of the claims (core.integrated_
 geometric law is the negative binomial with r = 1: mean rho / (1 - rho), dispersion 1 / (1 - rho).
 The sum is a one-line portfolio, so core.exceedance estimates it with its own automatic choice,
 Asmussen-Kroese conditioning, importance sampling and diagnostics.
-
-Beside each estimate: the subexponential asymptotic psi(u) ~ rho / (1 - rho) sf_I(u) for heavy
-tails, the Cramer-Lundberg approximation where an adjustment coefficient exists.
 """
 
 from __future__ import annotations
@@ -21,13 +18,10 @@ from core.exceedance import exceedance
 from core.integrated_tail import IntegratedTail
 from core.portfolio import Line, Portfolio
 from core.ruin import report
+from core.ruin.approximations import approximation
 from core.ruin.capital import Bracket
 from core.ruin.process import SurplusProcess
 from core.ruin.runner import Batch, Context
-
-# The capital search needs one sample set for every grid capital: plain conditioning has that,
-# conditional_is draws a set per threshold.
-_GRID_METHOD = {"crude": "crude"}
 
 
 def geometric_sum(process: SurplusProcess) -> Portfolio:
@@ -43,30 +37,31 @@ class GeometricRegime:
         self.integrated = self.portfolio.lines[0].severity
         self.name = method
         self.engine_reason = ""
+        self.grid_method: str | None = None
 
     @property
     def reason(self) -> str:
         rho = self.ctx.process.rho
-        return (f"Pollaczek-Khinchine: psi(u) = P(geometric sum of integrated-tail claims > u), "
+        text = (f"Pollaczek-Khinchine: psi(u) = P(geometric sum of integrated-tail claims > u), "
                 f"rho = {rho:.6g}, estimated by the exceedance engine ({self.engine_reason})")
-
-    def approximation(self, u: float) -> float | None:
-        gamma, constant = self.ctx.gamma, self.ctx.constant
-        if gamma is not None and constant is not None:
-            return math.exp(math.log(constant) - gamma * u)
-        if self.integrated.tail != "heavy":
-            return None
-        rho = self.ctx.process.rho
-        return math.exp(math.log(rho / (1.0 - rho)) + float(self.integrated.logsf(u)))
+        if self.grid_method is not None and self.grid_method != self.name:
+            text += (f"; the capital search used {self.grid_method} (one sample set for every "
+                     "grid capital)")
+        return text
 
     def estimate(self, capitals: np.ndarray, stream: int) -> Batch:
         ctx = self.ctx
-        method = self.method if stream == 0 else _GRID_METHOD.get(self.method, "conditional")
+        method = self.method
+        if stream > 0 and method != "crude":
+            # the capital search needs one sample set for all grid capitals: plain conditioning
+            # has that; conditional_is (and so auto, often) draws a set per threshold
+            method = "conditional"
+            self.grid_method = method
         res = exceedance(self.portfolio, capitals.tolist(), method=method,
                          precision=ctx.remaining(), seed=ctx.seed)
         if stream == 0:
             self.name, self.engine_reason = res.method, res.method_reason
-        out = [report.from_exceedance(e, self.approximation(e.threshold)) for e in res.estimates]
+        out = [report.from_exceedance(e, approximation(ctx, e.threshold)) for e in res.estimates]
         return out, [res.stopped_by]
 
     def bracket(self, target: float) -> Bracket:

@@ -26,7 +26,8 @@ from core.ruin.process import SurplusProcess
 
 PATHS_PER_BLOCK = 1024
 _MAX_STEPS = 1 << 9  # claims drawn per path per chunk, at most
-_MAX_EXPECTED_CLAIMS = 2_000_000  # per path: beyond this one block would run for minutes
+# per path: beyond this a block of paths draws over 2e8 claims and runs for a minute or more
+_MAX_EXPECTED_CLAIMS = 200_000
 
 
 @dataclass(frozen=True)
@@ -38,6 +39,7 @@ class PathPlan:
     capitals: np.ndarray  # sorted ascending
     horizon: float  # math.inf for the infinite horizon
     steps: int
+    work: float  # expected claims per path
 
     @classmethod
     def build(
@@ -53,15 +55,11 @@ class PathPlan:
                 "or a shorter horizon",
             )
         steps = int(min(_MAX_STEPS, max(8, 2 ** math.ceil(math.log2(max(expected / 4, 1.0))))))
-        return cls(process, tilt, u, horizon, steps)
+        return cls(process, tilt, u, horizon, steps, expected)
 
     @property
     def arrival_rate(self) -> float:
         return self.process.claim_rate * math.exp(self.tilt.log_w)
-
-    @property
-    def work(self) -> float:
-        return expected_claims(self.process, self.tilt, float(self.capitals[-1]), self.horizon)
 
 
 def expected_claims(process: SurplusProcess, tilt: ClaimTilt, top: float, horizon: float) -> float:

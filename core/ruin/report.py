@@ -6,20 +6,21 @@ import math
 from collections.abc import Sequence
 
 from core.diagnostics import ContributionStats
-from core.results import ExceedanceEstimate, RuinEstimate
+from core.results import Diagnostics, ExceedanceEstimate, RuinEstimate
 
 Z95 = 1.959963984540054
 LARGE_SHARE = 0.1
 
 
 def estimate(
-    stats: ContributionStats, col: int, *, capital: float, samples: int, method: str,
-    log_scale: float = 0.0, bound: float = 1.0, approximation: float | None = None,
+    stats: ContributionStats, col: int, *, diag: Diagnostics, capital: float, samples: int,
+    method: str, log_scale: float = 0.0, bound: float = 1.0, approximation: float | None = None,
 ) -> RuinEstimate:
     """Column `col` of `stats` times e^{log_scale} (contributions were stored scaled so that far
-    tails do not underflow). `bound` is the largest unscaled value one contribution can take:
-    with no hits, the 95% upper bound is bound * (1 - 0.05^(1/n)) (the rule of three scaled)."""
-    diag = stats.diagnose()[col]
+    tails do not underflow), with its diagnostics `diag` (stats.diagnose() covers every column
+    at once: call it once per sample set). `bound` is the largest unscaled value one
+    contribution can take: with no hits, the 95% upper bound is bound * (1 - 0.05^(1/n))
+    (the rule of three scaled)."""
     hits = int(stats.hits[col])
     mean = float(stats.mean()[col])
     if hits == 0 or mean <= 0.0:

@@ -21,6 +21,7 @@ import numpy as np
 
 from core.results import RuinEstimate
 from core.ruin import report
+from core.ruin.approximations import approximation
 from core.ruin.capital import Bracket
 from core.ruin.lundberg import doob_capital, horizon_tilt
 from core.ruin.measure import ClaimTilt, claim_tilt, exact_tilt, siegmund_tilt
@@ -43,7 +44,7 @@ class PathRegime:
             return f"crude simulation of the surplus process up to the horizon {self.ctx.horizon:g}"
         gamma = self.ctx.gamma
         if gamma is None:
-            return ("no adjustment coefficient (the net profit condition fails): paths tilted by "
+            return ("no adjustment coefficient: paths tilted by "
                     "a with kappa'(a) = u / T, stopped at the horizon")
         text = (f"Siegmund's algorithm: claims tilted by the adjustment coefficient gamma = "
                 f"{gamma:.6g}, estimator exp(-gamma S_tau) at the first passage")
@@ -67,12 +68,6 @@ class PathRegime:
             return self.siegmund
         return claim_tilt(sev, a)
 
-    def approximation(self, u: float) -> float | None:
-        ctx = self.ctx
-        if ctx.constant is None or ctx.gamma is None or math.isfinite(ctx.horizon):
-            return None
-        return math.exp(math.log(ctx.constant) - ctx.gamma * u)
-
     def bracket(self, target: float) -> Bracket | None:
         ctx = self.ctx
         hi = doob_capital(ctx.process, target, ctx.horizon, ctx.gamma)
@@ -83,9 +78,10 @@ class PathRegime:
     def estimate(self, capitals: np.ndarray, stream: int, *, tilt_at: float | None = None
                  ) -> Batch:
         """Estimates at `capitals`; with tilt_at, every capital shares the tilt for that one."""
+        shared = None if tilt_at is None else self.tilt_for(tilt_at)
         sets: dict[float, tuple[ClaimTilt, list[int]]] = {}
         for i, u in enumerate(capitals):
-            tilt = self.tilt_for(float(u) if tilt_at is None else tilt_at)
+            tilt = shared or self.tilt_for(float(u))
             sets.setdefault(tilt.a, (tilt, []))[1].append(i)
         found: dict[int, RuinEstimate] = {}
         stops = []
@@ -109,11 +105,13 @@ class PathRegime:
         drift = process.claim_rate * math.expm1(tilt.log_w) - process.premium * tilt.a
         # largest contribution: e^{-a u} at most, times e^{kappa_s(a) T} under a steeper tilt
         growth = max(drift, 0.0) * ctx.horizon if math.isfinite(ctx.horizon) else 0.0
+        diags = result.stats.diagnose()
         for col, i in enumerate(idx):
             u = float(capitals[i])
             found[i] = report.estimate(
-                result.stats, col, capital=u, samples=result.samples, method=self.name,
+                result.stats, col, diag=diags[col], capital=u, samples=result.samples,
+                method=self.name,
                 log_scale=-tilt.a * u, bound=math.exp(-tilt.a * u + growth),
-                approximation=self.approximation(u),
+                approximation=approximation(ctx, u),
             )
         return result.stopped_by

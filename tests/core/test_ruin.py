@@ -326,7 +326,7 @@ def test_heavy_tails_report_the_subexponential_asymptotic_and_no_gamma():
     rho = 1 / 1.2
     # rho / (1 - rho) sf_I(u), sf_I the Lomax(2, 2) survival function (closed form)
     assert res.adjustment_coefficient is None and res.lundberg_constant is None
-    assert res.estimates[0].approximation == pytest.approx(5.0 * (1 + 25.0) ** -2, rel=1e-12)
+    assert res.estimates[0].approximation == pytest.approx(rho / (1 - rho) * 26.0**-2, rel=1e-12)
     assert "Pollaczek-Khinchine" in res.method_reason and res.method == "conditional"
 
 

@@ -252,6 +252,41 @@ def diagnostics_cost(samples: int, repeats: int = 3) -> list[list]:
     return [["conditional, lognormal n=10, 5 thresholds", samples, a, b, b / a - 1.0]]
 
 
+def ruin_table(samples: int) -> list[list]:
+    """The ruin issue's cases against the exponential closed form (Siegmund) and the
+    subexponential asymptotic / recursion for heavy tails."""
+    from core import Exponential, Pareto, SurplusProcess, ruin
+
+    rows = []
+    theta = 0.1
+    proc = SurplusProcess(claim_rate=1.0, severity=Exponential(mean=1.0), loading=theta)
+
+    def closed(u: float) -> float:  # exponential claims, classical closed form
+        return math.exp(-theta * u / (1.0 + theta)) / (1.0 + theta)
+
+    us = [(1.1 / theta) * math.log(1.0 / (p * 1.1)) for p in (1e-2, 1e-8)]
+    res = ruin(proc, us, target_probability=1e-3, precision=Precision(samples=10_000), seed=1)
+    for e in res.estimates:
+        exact = closed(e.capital)
+        rows.append(["exponential, theta 0.1", res.method, 10_000, e.capital, e.probability,
+                     e.relative_error, exact, (e.probability - exact) / e.std_error])
+    cap = res.capital_for_target
+    u_exact = (1.1 / theta) * math.log(1.0 / (1e-3 * 1.1))
+    rows.append(["capital for 1e-3 (exponential)", res.method, 10_000, cap.capital, 1e-3,
+                 None, u_exact, cap.capital / u_exact - 1.0])
+    heavy = [("Lomax(3, 2), theta 0.2", SurplusProcess(
+        claim_rate=1.0, severity=Pareto(alpha=3.0, scale=2.0), loading=0.2), [165.0, 4470.0]),
+             ("lognormal(-0.5, 1), theta 0.25", SurplusProcess(
+                 claim_rate=1.0, severity=Lognormal(mu=-0.5, sigma=1.0), loading=0.25),
+              [57.0, 185.0])]
+    for label, proc_h, caps in heavy:
+        res = ruin(proc_h, caps, precision=Precision(samples=samples), seed=1)
+        for e in res.estimates:
+            rows.append([label, res.method, samples, e.capital, e.probability,
+                         e.relative_error, e.approximation, None])
+    return rows
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--quick", action="store_true", help="tiny budget (smoke test)")
@@ -283,6 +318,9 @@ def main(argv: list[str] | None = None) -> int:
     results["level_cost"] = level_cost(n)
     table("Cost of many levels (one sample set)", ["method", "levels", "seconds",
           "ratio to one level"], results["level_cost"])
+    results["ruin"] = ruin_table(n)
+    table("Ruin probabilities", ["case", "used", "samples", "capital", "psi", "rel. error",
+          "closed form / asymptotic", "z or rel. diff"], results["ruin"])
     results["diagnostics_cost"] = diagnostics_cost(n, repeats=1 if args.quick else 3)
     table("Cost of the diagnostics", ["case", "samples", "draw s", "draw + diagnostics s",
           "overhead"], results["diagnostics_cost"])

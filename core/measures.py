@@ -354,9 +354,14 @@ def _measure(curves: _Curves, q: float, portfolio: Portfolio) -> MeasureEstimate
     )
 
 
-def _interval(value: float, se: float) -> Interval:
-    return Interval(value=value, ci_low=max(0.0, value - Z95 * se), ci_high=value + Z95 * se,
-                    std_error=se)
+def _interval(value: float, se: float, n: int, cap: float = 1.0) -> Interval:
+    """value +- 1.96 se; with nothing observed, a one-sided 95% bound of -ln(0.05)/n times
+    the largest possible value (1 for a probability, the limit for a layer), never 0 +- 0."""
+    if value <= 0.0 and se <= 0.0:
+        return Interval(value=0.0, ci_low=0.0, ci_high=cap * -math.log(0.05) / n,
+                        std_error=None)
+    return Interval(value=value, ci_low=max(0.0, value - Z95 * se),
+                    ci_high=min(value + Z95 * se, cap), std_error=se)
 
 
 def _layers(curves: _Curves, a: np.ndarray, layers: Sequence[Layer]) -> list[LayerEstimate]:
@@ -365,12 +370,14 @@ def _layers(curves: _Curves, a: np.ndarray, layers: Sequence[Layer]) -> list[Lay
     for i, ly in enumerate(layers):
         col = 3 * i
         el, el_se = curves.extra[col], curves.extra_se[col]
-        pa = _interval(float(curves.extra[col + 1]), float(curves.extra_se[col + 1]))
+        n = curves.stats.n
+        pa = _interval(float(curves.extra[col + 1]), float(curves.extra_se[col + 1]), n)
         pe = None if ly.limit is None else _interval(float(curves.extra[col + 2]),
-                                                     float(curves.extra_se[col + 2]))
+                                                     float(curves.extra_se[col + 2]), n)
         out.append(LayerEstimate(
             attachment=ly.attachment, limit=ly.limit,
-            expected_loss=_interval(float(el), float(el_se)),
+            expected_loss=_interval(float(el), float(el_se), n,
+                                    ly.limit if ly.limit is not None else math.inf),
             probability_attach=pa, probability_exhaust=pe,
             diagnostics=diags[2 * a.size + col],
         ))
@@ -379,7 +386,8 @@ def _layers(curves: _Curves, a: np.ndarray, layers: Sequence[Layer]) -> list[Lay
 
 def _losses(curves: _Curves, n_layers: int, losses: Sequence[float]) -> list[Interval]:
     base = 3 * n_layers
-    return [_interval(float(curves.extra[base + i]), float(curves.extra_se[base + i]))
+    return [_interval(float(curves.extra[base + i]), float(curves.extra_se[base + i]),
+                      curves.stats.n)
             for i in range(len(losses))]
 
 

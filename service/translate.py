@@ -189,7 +189,8 @@ NO_HIT_BOUND = -math.log(0.05)
 def _nothing_observed(p: Interval, samples: int) -> bool:
     """A sampled probability of 0 with a zero-width interval: no sample reached the point.
     (The deterministic method reports samples = 0; its 0 is a rigorous bound.)"""
-    return samples > 0 and p.value <= 0.0 and p.ci_high <= 0.0
+    # The core marks it with std_error None (and its own one-sided bound).
+    return samples > 0 and p.value <= 0.0 and (p.std_error is None or p.ci_high <= 0.0)
 
 
 def _probability(p: Interval, samples: int) -> tuple[float | None, float | None, float | None]:

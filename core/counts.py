@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import abc
 import math
-import numbers
 from collections.abc import Sequence
 from typing import Any, ClassVar, overload
 
@@ -23,36 +22,14 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
 from core.errors import ParameterError
+from core.validate import integer as _integer
+from core.validate import positive as _positive
+from core.validate import real as _real
 
 __all__ = ["Binomial", "ClaimCount", "Fixed", "NegativeBinomial", "Poisson"]
 
 _Floats = NDArray[np.float64]
 _Array = NDArray[Any] | Sequence[Any]
-
-
-def _real(name: str, value: object) -> float:
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise ParameterError(name, f"must be a real number, got {value!r}")
-    out = float(value)
-    if not math.isfinite(out):
-        raise ParameterError(name, f"must be finite, got {out!r}")
-    return out
-
-
-def _positive(name: str, value: object) -> float:
-    out = _real(name, value)
-    if not out > 0:
-        raise ParameterError(name, f"must be > 0, got {out!r}")
-    return out
-
-
-def _integer(name: str, value: object, minimum: int) -> int:
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise ParameterError(name, f"must be an integer >= {minimum}, got {value!r}")
-    as_float = float(value)
-    if not math.isfinite(as_float) or as_float != int(as_float) or as_float < minimum:
-        raise ParameterError(name, f"must be an integer >= {minimum}, got {value!r}")
-    return int(as_float)
 
 
 def _apply(x: ArrayLike, fn: Any) -> Any:

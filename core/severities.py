@@ -18,7 +18,6 @@ from __future__ import annotations
 import abc
 import functools
 import math
-import numbers
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any, ClassVar, overload
@@ -29,6 +28,8 @@ from scipy import integrate, special
 
 from core.errors import ParameterError
 from core.phasetype import PhaseTypeParts, phase_type_parts
+from core.validate import positive as _positive
+from core.validate import real as _finite
 
 __all__ = [
     "Capped",
@@ -53,22 +54,6 @@ _WINDOW_NATS = 60.0  # integrand below exp(-60) of its peak is dropped in tilted
 
 
 # ---------------------------------------------------------------------------- validation
-
-
-def _finite(name: str, value: object) -> float:
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise ParameterError(name, f"must be a real number, got {value!r}")
-    out = float(value)
-    if not math.isfinite(out):
-        raise ParameterError(name, f"must be finite, got {out!r}")
-    return out
-
-
-def _positive(name: str, value: object) -> float:
-    out = _finite(name, value)
-    if not out > 0:
-        raise ParameterError(name, f"must be > 0, got {out!r}")
-    return out
 
 
 def _set(obj: object, name: str, value: object) -> None:

@@ -8,23 +8,14 @@ The premium rate c is given directly or as a safety loading theta, c = (1 + thet
 from __future__ import annotations
 
 import math
-import numbers
 from dataclasses import dataclass
 from functools import cached_property
 
 from core.errors import ParameterError
 from core.severities import Capped, Severity
+from core.validate import real as _real
 
 __all__ = ["SurplusProcess"]
-
-
-def _real(name: str, value: object) -> float:
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise ParameterError(name, f"must be a real number, got {value!r}")
-    out = float(value)
-    if not math.isfinite(out):
-        raise ParameterError(name, f"must be finite, got {out!r}")
-    return out
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -12,7 +12,7 @@ from service.errors import install_error_handlers
 from service.examples import load_examples
 from service.executor import ComputePool
 from service.metrics import Metrics, MetricsMiddleware, route_templates
-from service.routes import exceedance, health, layers, metrics, risk_measures, runs
+from service.routes import exceedance, health, layers, metrics, risk_measures, ruin, runs
 from service.schemas.exceedance import ExceedanceRequest
 from service.schemas.layers import LayersRequest
 from service.schemas.risk_measures import RiskMeasuresRequest
@@ -21,8 +21,9 @@ from service.worker import RunWorker
 
 DESCRIPTION = """\
 Tail-risk figures of a portfolio loss model from variance-reduced Monte Carlo: exceedance
-probabilities, value-at-risk and tail value-at-risk, return-period losses and aggregate layer
-losses, each with a 95% interval, the seed that reproduces it and the precision reached.
+probabilities, value-at-risk and tail value-at-risk, return-period losses, aggregate layer
+losses and ruin probabilities of a surplus process, each with a 95% interval, the seed that
+reproduces it and the precision reached.
 
 **Cautions.** Model risk dominates sampling error: the intervals cover the sampling error of
 the stated model only. Results are estimates for that model, not advice. Capital and reserving
@@ -59,6 +60,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         risk_measures.build_router(examples=load_examples(
             settings.examples_dir, "risk_measures", RiskMeasuresRequest)),
         layers.build_router(examples=load_examples(settings.examples_dir, "layers", LayersRequest)),
+        ruin.build_router(examples=ruin.ruin_examples(settings.examples_dir)),
         runs.build_router(examples=runs.run_examples(settings.examples_dir)),
         health.build_router(),
         metrics.build_router(),

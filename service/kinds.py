@@ -15,10 +15,11 @@ from pydantic import BaseModel
 
 from service.executor import ComputePool
 from service.metrics import Metrics
-from service.routes import exceedance, layers, risk_measures
+from service.routes import exceedance, layers, risk_measures, ruin
 from service.schemas.exceedance import ExceedanceRequest, ExceedanceResponse
 from service.schemas.layers import LayersRequest, LayersResponse
 from service.schemas.risk_measures import RiskMeasuresRequest, RiskMeasuresResponse
+from service.schemas.ruin import RuinRequest, RuinResponse
 from service.settings import Settings
 
 Handler = Callable[[BaseModel, Settings, ComputePool, Metrics], Awaitable[BaseModel]]
@@ -41,5 +42,6 @@ KINDS: dict[str, Kind] = {
              response=RiskMeasuresResponse, handle=risk_measures.handle),
         Kind(name="layers", request=LayersRequest, response=LayersResponse,
              handle=layers.handle),
+        Kind(name="ruin", request=RuinRequest, response=RuinResponse, handle=ruin.handle),
     )
 }

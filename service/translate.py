@@ -12,9 +12,16 @@ from contextlib import contextmanager
 from typing import Any
 
 import core
-from core.errors import MethodError, TailgaugeError
+from core.errors import MethodError, ParameterError, TailgaugeError
 from core.measures import Interval, Layer, LayerEstimate, MeasureEstimate, TailResult
-from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
+from core.results import (
+    CapitalForTarget,
+    Diagnostics,
+    ExceedanceEstimate,
+    ExceedanceResult,
+    RuinEstimate,
+    RuinResult,
+)
 from service.schemas.common import ComputationOut, DiagnosticsOut, LineSpec, PortfolioSpec
 from service.schemas.exceedance import ExceedanceEstimateOut, ExceedanceResponse
 from service.schemas.layers import LayerOut, LayerSpec, LayersResponse
@@ -24,6 +31,7 @@ from service.schemas.risk_measures import (
     MeasureOut,
     RiskMeasuresResponse,
 )
+from service.schemas.ruin import CapitalForTargetOut, ProcessSpec, RuinEstimateOut, RuinResponse
 
 _SEVERITIES: dict[str, Callable[..., Any]] = {
     "lognormal": core.Lognormal,
@@ -342,3 +350,86 @@ def layers_response(result: TailResult, *, warnings: list[str]) -> LayersRespons
                   ly.probability_attach_ci_low, ly.probability_attach_ci_high)
     ])
     return response
+
+
+# --- ruin -------------------------------------------------------------------------------------
+
+
+def ruin_process(spec: ProcessSpec) -> core.SurplusProcess:
+    """The surplus process; a claim law with an infinite mean is refused at its severity."""
+    with located("process.severity"):
+        severity = _SEVERITIES[spec.severity.family](**spec.severity.model_dump(exclude={"family"}))
+    if spec.retention is None and not math.isfinite(severity.mean):
+        # Without a finite mean claim neither the loading's premium nor the net profit
+        # condition means anything.
+        raise ParameterError(
+            "process.severity",
+            "has an infinite mean claim, but a ruin process needs a finite mean claim; give a "
+            "retention (the insurer then pays min(X, retention)), or a lighter tail (e.g. "
+            "Pareto alpha > 1)",
+        )
+    with located("process"):
+        return core.SurplusProcess(
+            claim_rate=spec.claim_rate,
+            severity=severity,
+            loading=spec.loading,
+            premium_rate=spec.premium_rate,
+            retention=spec.retention,
+        )
+
+
+def _ruin_estimate(e: RuinEstimate) -> RuinEstimateOut:
+    return RuinEstimateOut(
+        capital=float(e.capital),
+        probability=finite_or_none(e.value),
+        std_error=finite_or_none(e.std_error),
+        relative_error=finite_or_none(e.relative_error),
+        ci_low=finite_or_none(e.ci_low),
+        ci_high=finite_or_none(e.ci_high),
+        samples=int(e.samples),
+        hits=int(e.hits),
+        diagnostics=diagnostics(e.diagnostics),
+        approximation=finite_or_none(e.approximation),
+    )
+
+
+def _capital_for_target(c: CapitalForTarget | None) -> CapitalForTargetOut | None:
+    if c is None:
+        return None
+    return CapitalForTargetOut(
+        target=float(c.target),
+        capital=finite_or_none(c.capital),
+        ci_low=finite_or_none(c.ci_low),
+        ci_high=finite_or_none(c.ci_high),
+    )
+
+
+def ruin_response(
+    result: RuinResult, process: core.SurplusProcess, *, warnings: list[str]
+) -> RuinResponse:
+    response = RuinResponse(
+        engine_version=core.ENGINE_VERSION,
+        method=result.method,
+        method_reason=result.method_reason,
+        seed=int(result.seed),
+        elapsed_s=finite_or_none(result.elapsed_s),
+        stopped_by=result.stopped_by,
+        warnings=[*result.warnings, *warnings],
+        premium_rate=finite_or_none(result.premium_rate),
+        mean_claim=finite_or_none(process.mean_claim),
+        horizon=finite_or_none(result.horizon),
+        adjustment_coefficient=finite_or_none(result.adjustment_coefficient),
+        lundberg_constant=finite_or_none(result.lundberg_constant),
+        estimates=[_ruin_estimate(e) for e in result.estimates],
+        capital_for_target=_capital_for_target(result.capital_for_target),
+    )
+    if any(v is None for e in response.estimates for v in (e.probability, e.ci_low, e.ci_high)):
+        response.warnings.append(
+            "the engine produced a non-finite figure or interval end; it is reported as null"
+        )
+    return response
+
+
+def ruin_samples(result: RuinResult) -> int:
+    """Paths behind the reported estimates: the largest sample set (capital search excluded)."""
+    return max((int(e.samples) for e in result.estimates), default=0)

@@ -10,7 +10,9 @@ Which estimator:
   engine choose);
 - finite horizon: `tilted` (light tails; Siegmund's measure stopped at the horizon, steeper
   tilts for capitals beyond it), `conditional` (heavy tails; conditional Monte Carlo on the
-  largest claim of the path), `crude` (plain simulation to the horizon).
+  largest claim of the path), `crude` (plain simulation to the horizon);
+- `recursion` (infinite horizon only): deterministic lower and upper bounds of the
+  Pollaczek-Khinchine sum (core.ruin.recursion).
 
 With the net profit condition failing the infinite-horizon answer is exactly 1 for every
 capital: it is returned with a warning, without simulation.
@@ -34,11 +36,12 @@ from core.ruin.big_jump import JumpRegime
 from core.ruin.geometric import GeometricRegime
 from core.ruin.lundberg import adjustment_coefficient, lundberg_constant
 from core.ruin.process import SurplusProcess
+from core.ruin.recursion import ruin_bounds
 from core.ruin.runner import Batch, Context
 from core.ruin.siegmund import PathRegime
 from core.severities import Capped
 
-RUIN_METHODS = ("auto", "crude", "tilted", "conditional", "conditional_is")
+RUIN_METHODS = ("auto", "crude", "tilted", "conditional", "conditional_is", "recursion")
 
 Regime = PathRegime | GeometricRegime | JumpRegime
 
@@ -180,6 +183,9 @@ def ruin(
     seed = check_seed(seed)
     if not math.isfinite(horizon_t) and not process.profitable:
         return _certain(process, u, target, seed, start)
+    if method == "recursion":  # deterministic bounds (core.ruin.recursion); infinite horizon
+        return ruin_bounds(process, u, horizon=horizon_t, target=target, precision=precision,
+                           seed=seed, start=start)
     precision = precision or Precision()
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     gamma = adjustment_coefficient(process)

@@ -82,7 +82,7 @@ def test_premium_from_loading_uses_the_net_claim():
         ({"capitals": [1.0], "horizon": 0.0}, "horizon"),
         ({"capitals": [1.0], "horizon": math.inf}, "horizon"),
         ({"capitals": [1.0], "target_probability": 1.0}, "target_probability"),
-        ({"capitals": [1.0], "method": "recursion"}, "method"),
+        ({"capitals": [1.0], "method": "annealing"}, "method"),
     ],
 )
 def test_ruin_rejects_bad_requests_naming_the_field(kwargs, name):

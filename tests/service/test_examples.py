@@ -113,9 +113,41 @@ def test_layers_example_answers_with_sensible_figures(client, path: Path):
             assert ly["probability_exhaust"] <= ly["probability_attach"]
 
 
+# --- ruin ------------------------------------------------------------------------------------
+
+RUIN_FILES = sorted(DEFAULT_EXAMPLES_DIR.glob("ruin_*.json"))
+
+
+def test_there_is_a_ruin_example():
+    assert len(RUIN_FILES) >= 1
+
+
+@pytest.mark.parametrize("path", RUIN_FILES, ids=lambda p: p.stem)
+def test_ruin_example_answers_with_sensible_figures(client, path: Path):
+    body = json.loads(path.read_text(encoding="utf-8"))
+    response = client.post("/v1/ruin", json=body)
+    assert response.status_code == 200, response.text
+    result = response.json()
+    assert result["seed"] == body["seed"]
+    estimates = result["estimates"]
+    assert [e["capital"] for e in estimates] == body["capital"]
+    for e in estimates:
+        assert 0.0 <= e["ci_low"] <= e["probability"] <= e["ci_high"] <= 1.0
+        assert isinstance(e["diagnostics"]["reliable"], bool) and e["diagnostics"]["reason"]
+    # More capital cannot make ruin likelier (beyond sampling noise).
+    for e0, e1 in zip(estimates, estimates[1:], strict=False):
+        if e1["capital"] > e0["capital"]:
+            assert e1["probability"] <= e0["probability"] + 4 * (e0["std_error"] or 0.0)
+    if "target_probability" in body:
+        found = result["capital_for_target"]
+        assert found["target"] == body["target_probability"]
+        assert found["ci_low"] <= found["capital"] <= found["ci_high"]
+
+
 @pytest.mark.parametrize(("route", "resource", "files"), [
     ("/v1/risk-measures", "risk_measures", RISK_MEASURES_FILES),
     ("/v1/layers", "layers", LAYERS_FILES),
+    ("/v1/ruin", "ruin", RUIN_FILES),
 ])
 def test_new_examples_are_named_in_the_openapi_document(client, route, resource, files):
     operation = client.get("/openapi.json").json()["paths"][route]["post"]

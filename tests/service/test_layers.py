@@ -113,6 +113,9 @@ def test_recursion_bounds_bracket_the_poisson_gamma_mixture(client):
         attach = _exceedance(3.0, 2.0, a)
         assert out["probability_attach_ci_low"] <= attach <= out["probability_attach_ci_high"]
         assert out["expected_loss_std_error"] is None
+        # the headline figures lie between their bounds
+        for name in ("expected_loss", "probability_attach"):
+            assert out[f"{name}_ci_low"] <= out[name] <= out[f"{name}_ci_high"]
 
 
 def test_adjacent_layers_add_up_to_the_combined_layer(client):

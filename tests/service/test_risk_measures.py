@@ -256,10 +256,15 @@ def test_recursion_bounds_bracket_the_gamma_law(client):
         assert m["var_ci_low"] <= v <= m["var_ci_high"]
         assert m["tvar_ci_low"] <= tvar <= m["tvar_ci_high"]
         assert m["tvar_std_error"] is None
+        # the headline figures lie between their bounds
+        assert m["var_ci_low"] <= m["var"] <= m["var_ci_high"]
+        assert m["tvar_ci_low"] <= m["tvar"] <= m["tvar_ci_high"]
     (point,) = result["curve"]
     assert point["loss_ci_low"] <= float(law.ppf(1.0 - 1.0 / 500.0)) <= point["loss_ci_high"]
+    assert point["loss_ci_low"] <= point["loss"] <= point["loss_ci_high"]
     (loss,) = result["loss_return_periods"]
     assert loss["probability_ci_low"] <= float(law.sf(60.0)) <= loss["probability_ci_high"]
+    assert loss["probability_ci_low"] <= loss["probability"] <= loss["probability_ci_high"]
     assert loss["std_error"] is None
 
 

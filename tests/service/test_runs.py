@@ -132,7 +132,7 @@ def test_malformed_batches_are_refused_whole(make_client):
 
 def test_a_kind_the_server_does_not_offer_yet_is_refused_at_submission(make_client):
     client = make_client()
-    # Stand-in for a kind of the contract that is not in KINDS yet (ruin, until it lands).
+    # Stand-in for a kind of the contract that is not in KINDS yet (ruin).
     client.app.state.runs.kinds = {"exceedance": KINDS["exceedance"]}
     detail = _refused(client, _batch([("a", "exceedance", _exceedance(1)),
                                       ("b", "layers", {})]))

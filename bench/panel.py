@@ -643,15 +643,19 @@ def tables(rows: Sequence[Row], samples: int, extra: dict[str, Any]) -> str:
           0.0 if r.reference.closed_form is not None else r.reference.width, r.runs["auto"].z,
           r.runs["auto"].z_bounds, r.runs["auto"].reliable, s["auto_violation"]]
          for r, s in zip(rows, summ, strict=True)]))
-    rec = extra["recursion_target"]
-    parts.append(markdown(
+    parts.append(recursion_table(extra["recursion_target"]))
+    return "\n".join(parts)
+
+
+def recursion_table(rec: dict[str, Any]) -> str:
+    return markdown(
         f"Recursion bounds, Poisson(5) lognormal(0,1.5) at x = {rec['threshold']:.6g} "
         f"(P = {rec['grid'][-1]['point']:.4g})",
         ["cells", "lower", "upper", "width (upper-lower)/point", "seconds"],
-        [[g["cells"], g["lower"], g["upper"], g["width"], g["seconds"]] for g in rec["grid"]]
+        [[g["cells"], fmt(g["lower"], 6), fmt(g["upper"], 6), g["width"], g["seconds"]]
+         for g in rec["grid"]]
         + [[f"method=recursion, relative_error={rec['half_width']:g}", "", "",
-            rec["public"]["width"], rec["public"]["seconds"]]]))
-    return "\n".join(parts)
+            rec["public"]["width"], rec["public"]["seconds"]]])
 
 
 def _plain(v: Any) -> Any:

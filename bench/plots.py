@@ -1,9 +1,15 @@
 """PNG plots of the panel's results (bench.panel), drawn with matplotlib's Agg backend (no
-display needed). Each function takes the JSON-ready results and writes one file."""
+display needed). Each function takes the JSON-ready results and writes one file.
+
+    python -m bench.plots [FOLDER]    # redraw the plots from FOLDER/panel.json (bench/out)
+"""
 
 from __future__ import annotations
 
+import io
+import json
 import math
+import sys
 from pathlib import Path
 from typing import Any
 
@@ -13,10 +19,12 @@ matplotlib.use("Agg")
 
 import matplotlib.pyplot as plt  # noqa: E402 - the backend must be chosen first
 from matplotlib.ticker import NullFormatter  # noqa: E402
+from PIL import Image  # noqa: E402 - matplotlib depends on Pillow
 
 STYLE = {"crude": "C0", "conditional": "C1", "conditional_is": "C2", "tilted": "C3",
          "auto": "k"}
 DPI = 80
+COLOURS = 64  # line plots need few colours: a palette PNG is a fraction of the size
 
 
 def _save(fig: Any, path: Path) -> Path:
@@ -24,8 +32,12 @@ def _save(fig: Any, path: Path) -> Path:
         ax.xaxis.set_minor_formatter(NullFormatter())  # decade labels only on log axes
         ax.yaxis.set_minor_formatter(NullFormatter())
     fig.tight_layout()
-    fig.savefig(path, dpi=DPI)
+    buffer = io.BytesIO()
+    fig.savefig(buffer, dpi=DPI, format="png")
     plt.close(fig)
+    buffer.seek(0)
+    with Image.open(buffer) as image:
+        image.convert("RGB").quantize(colors=COLOURS).save(path, optimize=True)
     return path
 
 
@@ -136,3 +148,15 @@ def write_all(results: dict[str, Any], out: Path) -> list[Path]:
         cost_samples_plot(results["cost_vs_samples"], out / "cost_samples.png"),
         cost_claims_plot(results["cost_vs_claims"], out / "cost_claims.png"),
     ]
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = sys.argv[1:] if argv is None else argv
+    out = Path(args[0]) if args else Path(__file__).resolve().parent / "out"
+    for path in write_all(json.loads((out / "panel.json").read_text()), out):
+        print(f"wrote {path}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

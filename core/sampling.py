@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -256,7 +257,12 @@ class StepwiseTilt:
         shift = logw.max()
         w = np.exp(logw - shift)
         self.log_w = float(np.log(w.sum()) + shift)  # log W, the stepwise cumulant
-        self.accept, self.alias = _alias_table(w / w.sum())
+        self._weights = w / w.sum()
+
+    @cached_property
+    def _alias(self) -> tuple[np.ndarray, np.ndarray]:
+        # Built only when drawing: root finding on theta needs log W alone.
+        return _alias_table(self._weights)
 
     @classmethod
     def for_severity(cls, sev: Severity, theta: float) -> StepwiseTilt:
@@ -264,9 +270,10 @@ class StepwiseTilt:
 
     def sample(self, size: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
         g = self.grid
-        k = self.accept.size
+        accept, alias = self._alias
+        k = accept.size
         cell = np.minimum((rng.random(size) * k).astype(np.int64), k - 1)
-        cell = np.where(rng.random(size) < self.accept[cell], cell, self.alias[cell])
+        cell = np.where(rng.random(size) < accept[cell], cell, alias[cell])
         top, bottom = g.edges_sf[cell], g.edges_sf[cell + 1]
         u = bottom + (top - bottom) * rng.random(size)
         y = np.asarray(g.sev.isf(np.clip(u, 1e-300, 1.0)), dtype=float)

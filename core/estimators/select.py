@@ -22,18 +22,11 @@ METHOD_STREAM = {"crude": 0, "conditional": 1, "conditional_is": 2, "tilted": 3}
 
 
 def candidates(portfolio: Portfolio) -> list[str]:
-    """In pilot order: the cheap shared-sample estimators first, so a clearly good one can
-    spare the adaptation that conditional_is needs for every threshold."""
+    """Candidate estimators for the tails in the model."""
     if portfolio.is_light:
         return ["tilted", "crude"]
     return ["conditional", "conditional_is", "crude"]
 
-
-# Plain conditional needs no importance sampling on top when its pilot shows a per-sample
-# relative variance below this, every verdict reliable and a k-hat of at most 0.5 (the
-# contributions have a finite variance): adapting a proposal would then cost more than it saves.
-GOOD_ENOUGH_RELVAR = 10.0
-GOOD_ENOUGH_KHAT = 0.5
 
 
 def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> list[Group]:
@@ -56,11 +49,6 @@ class Trial:
     reliable: np.ndarray  # one flag per threshold
     relvar: np.ndarray
     khat: np.ndarray | None = None
-
-    @property
-    def good_enough(self) -> bool:
-        return bool(self.reliable.all() and np.max(self.relvar) <= GOOD_ENOUGH_RELVAR
-                    and self.khat is not None and np.max(self.khat) <= GOOD_ENOUGH_KHAT)
 
 
 def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
@@ -90,13 +78,7 @@ def choose(portfolio: Portfolio, x: np.ndarray, seed: int) -> tuple[list[Trial],
     """Trials ordered best first, and the reason in words."""
     trials: list[Trial] = []
     refused: list[TailgaugeError] = []
-    skipped = ""
     for name in candidates(portfolio):
-        if name == "conditional_is" and any(t.name == "conditional" and t.good_enough
-                                            for t in trials):
-            skipped = "; conditional_is not tried: the plain estimator's pilot is already " \
-                      "precise and well-behaved"
-            continue
         try:
             trials.append(pilot(name, portfolio, x, seed))
         except (LimitError, MethodError) as exc:
@@ -115,7 +97,6 @@ def choose(portfolio: Portfolio, x: np.ndarray, seed: int) -> tuple[list[Trial],
         f"{tails}: pilot of {PILOT_SAMPLES} samples per candidate; {best.name} has the lowest "
         f"work-normalised variance" + (f" (others relative: {others})" if others else "")
     )
-    reason += skipped
     if not best.reliable.all():
         reason += "; no candidate passed every reliability check in the pilot"
     return trials, reason

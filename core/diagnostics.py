@@ -29,7 +29,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from functools import cached_property
+from functools import cached_property, lru_cache
 from typing import NamedTuple
 
 import numpy as np
@@ -448,8 +448,10 @@ def _verdict(
     return record(True, "ok")
 
 
+@lru_cache(maxsize=64)
 def _batch_band(batches: int) -> tuple[float, float]:
-    """Central 1 - BATCH_FALSE_ALARM range of sqrt(chi2_{G-1} / (G-1))."""
+    """Central 1 - BATCH_FALSE_ALARM range of sqrt(chi2_{G-1} / (G-1)); cached, as every
+    estimate of a call asks for the same batch count and scipy's ppf is slow to call."""
     dof = batches - 1
     q = stats.chi2.ppf([BATCH_FALSE_ALARM / 2, 1 - BATCH_FALSE_ALARM / 2], dof)
     return float(math.sqrt(q[0] / dof)), float(math.sqrt(q[1] / dof))

@@ -30,7 +30,8 @@ from core.portfolio import Portfolio
 from core.sampling import PILOT, Draw, TiltGrid, block_rng, draw_block
 from core.severities import Capped
 
-_CE_ROUNDS = 3
+# Moment-matching updates of theta from its start, each on its own pilot block.
+_CE_ROUNDS = 2
 _CE_SAMPLES = 4096
 # Share of samples drawn from the model itself (defensive mixture, Hesterberg 1995): it caps
 # the likelihood ratio at 1 / DEFENSIVE, so a region the adapted proposal neglects (one claim
@@ -129,7 +130,7 @@ def adapt(portfolio: Portfolio, x: float, seed: int, group: int) -> tuple[TiltFa
     family = capped_family(cond, x)
     theta = family.theta_for(x)
     xs = np.array([x])
-    for r in range(_CE_ROUNDS - 1):
+    for r in range(_CE_ROUNDS):
         rng = block_rng(seed, PILOT, group, r)
         j = cond.choose(_CE_SAMPLES, rng)
         draw = family.draw([theta], _CE_SAMPLES, rng, j, defensive=DEFENSIVE)

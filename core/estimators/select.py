@@ -48,14 +48,12 @@ class Trial:
     cost: float
     reliable: np.ndarray  # one flag per threshold
     relvar: np.ndarray
-    khat: np.ndarray | None = None
 
 
 def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
     groups = plan(name, portfolio, x, seed)
     relvar = np.full(x.size, math.inf)
     reliable = np.zeros(x.size, dtype=bool)
-    khat = np.full(x.size, math.inf)
     cost = 0.0
     for g, group in enumerate(groups):
         rng = block_rng(seed, PILOT, _PILOT_GROUP_BASE.get(name, 4 << 20) + g, 0)
@@ -66,12 +64,10 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
             rv = np.where(mean > 0, (se / mean) ** 2 * PILOT_SAMPLES, math.inf)
         idx = list(group.indices)
         relvar[idx] = rv
-        diags = stats.diagnose()
-        reliable[idx] = [d.reliable for d in diags]
-        khat[idx] = [d.pareto_k if d.pareto_k is not None else math.inf for d in diags]
+        reliable[idx] = [d.reliable for d in stats.diagnose()]
         # A shared sample set costs its work once for all of its thresholds.
         cost += float(np.max(rv)) * group.work
-    return Trial(name, groups, cost, reliable, relvar, khat)
+    return Trial(name, groups, cost, reliable, relvar)
 
 
 def choose(portfolio: Portfolio, x: np.ndarray, seed: int) -> tuple[list[Trial], str]:

@@ -9,6 +9,7 @@ from collections.abc import Sequence
 import numpy as np
 from scipy.stats import beta
 
+from core import degenerate
 from core.diagnostics import ContributionStats
 from core.errors import ParameterError
 from core.estimators import select
@@ -162,6 +163,8 @@ def exceedance(
     precision = precision or Precision()
     if method not in METHODS:
         raise ParameterError("method", f"must be one of {', '.join(METHODS)}; got {method!r}")
+    if degenerate.surely_zero(portfolio):
+        return degenerate.exceedance(x, seed, start)
     if method == "recursion":
         return _recursion(portfolio, x, precision, seed, start)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s

@@ -20,6 +20,7 @@ from functools import cached_property
 import numpy as np
 from scipy import stats
 
+from core import degenerate
 from core.diagnostics import ContributionStats
 from core.errors import ParameterError
 from core.estimators import select
@@ -207,6 +208,8 @@ def tail_estimates(
     seed = check_seed(seed)
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
+    if degenerate.surely_zero(portfolio):
+        return _surely_zero(q, layers, losses, seed, start)
     if method == "recursion":
         from core.recursion_measures import tail_bounds
 
@@ -224,6 +227,32 @@ def tail_estimates(
             return result
     assert first is not None
     return first
+
+
+def _point(value: float) -> Interval:
+    return Interval(value=value, ci_low=value, ci_high=value, std_error=None)
+
+
+def _surely_zero(levels: np.ndarray, layers: Sequence[Layer], losses: Sequence[float], seed: int,
+                 start: float) -> TailResult:
+    """S = 0 surely (core/degenerate.py): every figure exact, nothing sampled."""
+    exact = degenerate.EXACT
+    measures = [MeasureEstimate(level=float(q), var=_point(0.0), tvar=_point(0.0),
+                                diagnostics=exact) for q in levels]
+    layer_estimates = [
+        LayerEstimate(
+            attachment=ly.attachment, limit=ly.limit, expected_loss=_point(0.0),
+            probability_attach=_point(0.0),
+            probability_exhaust=None if ly.limit is None else _point(0.0), diagnostics=exact,
+        )
+        for ly in layers  # attachments are >= 0: a loss of 0 never reaches a layer
+    ]
+    return TailResult(
+        method=degenerate.METHOD, method_reason=degenerate.REASON, seed=seed,
+        elapsed_s=time.monotonic() - start, stopped_by="exact", samples=0, mean=0.0,
+        std_dev=0.0, measures=measures, layers=layer_estimates,
+        loss_exceedance=[_point(degenerate.above(float(x))) for x in losses],
+    )
 
 
 def _extra_points(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:

@@ -14,6 +14,12 @@ from core.results import RuinEstimate
 from core.ruin.process import SurplusProcess
 from core.sampling import block_rng
 
+
+class OutOfTime(Exception):
+    """The request's time limit passed inside a block of the capital search (whose blocks of
+    far-reaching paths can take minutes): the search stops and reports what it reached."""
+
+
 # Random-number purposes of ruin paths (core.sampling uses MAIN = 0 and PILOT = 1), so a ruin
 # request never reuses the random numbers of an exceedance request with the same seed.
 TILTED_PATHS, JUMP_PATHS = 2, 3

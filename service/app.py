@@ -8,7 +8,7 @@ from contextlib import asynccontextmanager
 from fastapi import FastAPI
 
 from service.body_limit import BodyLimitMiddleware
-from service.errors import install_error_handlers
+from service.errors import InternalErrorMiddleware, install_error_handlers
 from service.examples import load_examples
 from service.executor import ComputePool
 from service.metrics import Metrics, MetricsMiddleware, route_templates
@@ -67,7 +67,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     ]
     for router in routers:
         app.include_router(router)
-    # Added last = outermost: metrics see every answer, including the body limit's 413.
+    # Added last = outermost: metrics see every answer, including the body limit's 413 and
+    # the 500 of a bug (answered inside, so that the connection is kept).
+    app.add_middleware(InternalErrorMiddleware)
     app.add_middleware(BodyLimitMiddleware, max_body_bytes=settings.max_body_bytes)
     app.add_middleware(
         MetricsMiddleware, metrics=instruments, templates=route_templates(routers)

@@ -3,7 +3,6 @@
 # No "from __future__ import annotations": FastAPI must see the endpoint annotations,
 # which refer to names local to build_router.
 
-import asyncio
 import base64
 import binascii
 import json
@@ -17,7 +16,7 @@ from service.errors import detail_entry
 from service.examples import load_examples
 from service.routes.responses import ERROR_RESPONSES, ErrorBody
 from service.schemas.runs import RunAccepted, RunBatchIn, RunList, RunOut, RunStatusName
-from service.worker import BatchRejected, IdempotencyConflict, RunWorker, batch_view, summary
+from service.worker import BatchRejected, IdempotencyConflict, RunWorker, summary
 
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 PAGE_DEFAULT = 50
@@ -130,10 +129,8 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
                 ["query", "cursor"], "give either offset or cursor, not both", "value_error"
             )])
         before = None if cursor is None else _decode_cursor(cursor)
-        page = await asyncio.to_thread(
-            worker.store.list_runs, status=status, limit=limit + 1, offset=offset or 0,
-            before_seq=before,
-        )
+        page = await worker.list_runs(status=status, limit=limit + 1, offset=offset or 0,
+                                      before_seq=before)
         more = len(page) > limit
         page = page[:limit]
         return RunList(
@@ -155,20 +152,19 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
     async def get_run_batch(run_id: str, worker: WorkerDep) -> RunBatchIn:
         """The batch as stored, with the seed of every item: POST it again to repeat the run
         exactly (same engine version, same figures)."""
-        snapshot = await asyncio.to_thread(worker.store.read_run, run_id)
-        if snapshot is None:
+        batch = await worker.batch(run_id)
+        if batch is None:
             raise _not_found(run_id)
-        return batch_view(*snapshot)
+        return batch
 
     @router.delete("/runs/{run_id}", response_model=RunOut, summary="Cancel a run",
                    responses=_NOT_FOUND)
     async def cancel_run(run_id: str, worker: WorkerDep) -> RunOut:
         """Queued items are not run; running ones may finish and keep their results. A run
         that has already finished is left as it is (the call is safe to repeat)."""
-        if await asyncio.to_thread(worker.store.cancel_run, run_id) is None:
+        view = await worker.cancel(run_id)
+        if view is None:
             raise _not_found(run_id)
-        view = await worker.view(run_id)
-        assert view is not None
         return view
 
     return router

@@ -13,6 +13,7 @@ from service.examples import load_examples
 from service.executor import ComputePool
 from service.metrics import Metrics, MetricsMiddleware, route_templates
 from service.routes import exceedance, health, layers, metrics, risk_measures, ruin, runs
+from service.routes.responses import INTERNAL_ERROR
 from service.schemas.exceedance import ExceedanceRequest
 from service.schemas.layers import LayersRequest
 from service.schemas.risk_measures import RiskMeasuresRequest
@@ -28,6 +29,12 @@ reproduces it and the precision reached.
 **Cautions.** Model risk dominates sampling error: the intervals cover the sampling error of
 the stated model only. Results are estimates for that model, not advice. Capital and reserving
 figures follow the local regulator's rules and need a qualified actuary's sign-off.
+
+**Errors.** Every error body is `{"detail": [{"loc": [...], "msg": ..., "type": ...}]}`, whatever
+the status: the ones each operation lists below, and 404 (`not_found`, a path the API does not
+have) and 405 (`method_not_allowed`, with an `Allow` header) for requests outside it. A body that
+is not JSON (invalid UTF-8, an integer literal of thousands of digits, nesting too deep) is a 422
+`json_invalid`.
 """
 
 
@@ -48,7 +55,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             await runs_worker.stop()
             pool.shutdown()
 
-    app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan)
+    app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan,
+                  responses=INTERNAL_ERROR)
     app.state.settings = settings
     app.state.metrics = instruments
     app.state.pool = pool

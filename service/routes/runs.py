@@ -21,6 +21,9 @@ from service.worker import BatchRejected, IdempotencyConflict, RunWorker, summar
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 PAGE_DEFAULT = 50
 PAGE_MAX = 500
+# SQLite integers are 64-bit; a larger offset overflowed in the store (500). Far beyond any
+# real listing, and JSON-safe.
+OFFSET_MAX = 2**53 - 1
 
 
 def _worker(request: Request) -> RunWorker:
@@ -59,7 +62,7 @@ def _decode_cursor(cursor: str) -> int:
         before = json.loads(base64.urlsafe_b64decode(cursor.encode()))["before"]
     except (binascii.Error, ValueError, TypeError, KeyError):
         before = None
-    if not isinstance(before, int) or isinstance(before, bool):
+    if not isinstance(before, int) or isinstance(before, bool) or not 0 <= before <= OFFSET_MAX:
         raise RequestValidationError([detail_entry(
             ["query", "cursor"], "is not a cursor returned by GET /v1/runs", "cursor_invalid"
         )])
@@ -118,7 +121,8 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
         limit: Annotated[int, Query(
             ge=1, le=PAGE_MAX, description="Most runs on the page.")] = PAGE_DEFAULT,
         offset: Annotated[int | None, Query(
-            ge=0, description="Skip this many runs (newest first); not with cursor.")] = None,
+            ge=0, le=OFFSET_MAX,
+            description="Skip this many runs (newest first); not with cursor.")] = None,
         cursor: Annotated[str | None, Query(
             description="next_cursor of the previous page; not with offset.")] = None,
     ) -> RunList:

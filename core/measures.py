@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
 
@@ -28,7 +28,7 @@ from core.exceedance import Z95, check_seed
 from core.functionals import sampler
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
-from core.results import Diagnostics
+from core.results import Contribution, Diagnostics
 from core.sampling import PILOT, block_rng, block_size
 
 GRID = 64
@@ -64,6 +64,8 @@ class MeasureEstimate:
     var: Interval
     tvar: Interval
     diagnostics: Diagnostics
+    # Euler allocation of the TVaR to the portfolio's parts (credit: obligor groups).
+    contributions: list[Contribution] = field(default_factory=list)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -291,11 +293,36 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     """Main run: the grid's exceedance and stop-loss columns, then per layer its loss,
     attachment and exhaustion columns, then P(S > loss) per loss."""
     n_layers = len(layers)
-    extra = [ly.attachment for ly in layers] + [
-        ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
+    extra = point_columns(layers, losses)
     values = sampler(name, portfolio, np.concatenate([a, np.asarray(extra, dtype=float)]),
                      anchors, seed)
     g, e = a.size, len(extra)
+    block = layout_block(values, g, layers, losses)
+
+    group = Group((0,), block, work_per_sample(portfolio.expected_claims, 2 * (g + e)), name)
+    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    error_of = _var_error(q, a) if q.size else _layer_error(g, n_layers)
+    run = run_group(group, block_size(portfolio), precision, seed,
+                    _STREAM + select.METHOD_STREAM[name], deadline, error_of=error_of)
+    return _Curves(a, run.stats), run
+
+
+def point_columns(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:
+    """The points beyond the grid whose exceedance and stop loss a run needs: every layer's
+    attachment, then its exhaustion point, then each loss."""
+    return [ly.attachment for ly in layers] + [
+        ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
+
+
+def layout_block(
+    values: Callable[[int, np.random.Generator], np.ndarray], g: int,
+    layers: Sequence[Layer], losses: Sequence[float],
+) -> Callable[[int, np.random.Generator], np.ndarray]:
+    """From per-sample [exceedance | stop loss] at the grid and `point_columns` to the columns
+    _Curves reads: the grid's exceedance and stop loss, then per layer its loss, attachment
+    and exhaustion, then P(S > loss) per loss."""
+    n_layers = len(layers)
+    e = 2 * n_layers + len(losses)
 
     def block(m: int, rng: np.random.Generator) -> np.ndarray:
         v = values(m, rng)
@@ -310,12 +337,7 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
         # Differences of monotone per-sample values are >= 0 up to rounding.
         return np.maximum(np.hstack(cols), 0.0)
 
-    group = Group((0,), block, work_per_sample(portfolio.expected_claims, 2 * (g + e)), name)
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    error_of = _var_error(q, a) if q.size else _layer_error(g, n_layers)
-    run = run_group(group, block_size(portfolio), precision, seed,
-                    _STREAM + select.METHOD_STREAM[name], deadline, error_of=error_of)
-    return _Curves(a, run.stats), run
+    return block
 
 
 def _layer_error(g: int, n_layers: int):
@@ -329,7 +351,7 @@ def _layer_error(g: int, n_layers: int):
     return error_of
 
 
-def _measure(curves: _Curves, q: float, portfolio: Portfolio) -> MeasureEstimate:
+def _measure(curves: _Curves, q: float, portfolio: object = None) -> MeasureEstimate:
     v, lo, hi = curves.var(q)
     a = curves.a
     g = int(np.clip(np.searchsorted(a, v if v is not None else a[0]), 0, a.size - 1))

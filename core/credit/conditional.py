@@ -122,6 +122,7 @@ def solve_theta(model: CreditModel, tables: LgdTables, cond: Conditional,
         bad = ~np.isfinite(nxt) | (nxt <= lo[idx]) | (nxt >= hi[idx])
         nxt = np.where(bad, 0.5 * (lo[idx] + hi[idx]), nxt)
         theta[idx] = nxt
-        conv = (np.abs(d1) <= _TOL * max(threshold, 1e-300)) | (hi[idx] - lo[idx] <= 1e-12 * hi[idx])
+        conv = ((np.abs(d1) <= _TOL * max(threshold, 1e-300))
+                | (hi[idx] - lo[idx] <= 1e-12 * hi[idx]))
         active[idx[conv]] = False
     return theta

@@ -15,8 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from core.validate import positive, real
 from core.errors import ParameterError
+from core.validate import positive, real
 
 # Kummer's function overflows a double near t = 700; the twist never needs more than this.
 MAX_TILT = 600.0

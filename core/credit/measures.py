@@ -35,6 +35,7 @@ from core.functionals import spread_out
 from core.measures import (
     PILOT_SAMPLES,
     Layer,
+    MeasureEstimate,
     TailResult,
     _Curves,
     _grid,
@@ -43,10 +44,10 @@ from core.measures import (
     _losses,
     _measure,
     _var_error,
+    check_levels,
     layout_block,
     point_columns,
 )
-from core.measures import MeasureEstimate, check_levels
 from core.precision import Precision, run_group
 from core.results import Contribution
 from core.sampling import PILOT, block_rng
@@ -196,7 +197,7 @@ def _with_contributions(model: CreditModel, name: str, m: MeasureEstimate,
     mean = np.asarray(run.stats.mean(), dtype=float)
     se = np.asarray(run.stats.std_error(), dtype=float)
     var = se * se * run.stats.n  # per-sample variances
-    a, s, a_plus = mean[:gs], float(mean[gs]), mean[gs + 1:]
+    a, s = mean[:gs], float(mean[gs])
     if s <= 0:
         return m
     var_a, var_s, var_sum = var[:gs], float(var[gs]), var[gs + 1:]

@@ -16,6 +16,7 @@ import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy import stats
@@ -27,6 +28,9 @@ from core.estimators.base import Group, work_per_sample
 from core.exceedance import Z95, check_seed
 from core.functionals import sampler
 from core.portfolio import Portfolio
+
+if TYPE_CHECKING:
+    from core.credit.model import CreditModel
 from core.precision import Precision, run_group
 from core.results import Contribution, Diagnostics
 from core.sampling import PILOT, block_rng, block_size
@@ -197,14 +201,21 @@ def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> li
 
 
 def tail_estimates(
-    portfolio: Portfolio, *, levels: Sequence[float] = (), layers: Sequence[Layer] = (),
-    losses: Sequence[float] = (), method: str = "auto", precision: Precision | None = None,
-    seed: int | None = None,
+    portfolio: Portfolio | CreditModel, *, levels: Sequence[float] = (),
+    layers: Sequence[Layer] = (), losses: Sequence[float] = (), method: str = "auto",
+    precision: Precision | None = None, seed: int | None = None,
 ) -> TailResult:
     """VaR and TVaR at `levels`, `layers` losses and P(S > loss) for `losses`, from one
     sample set. With `auto`, a result with a figure flagged unreliable is redone with the
     next candidate (at most one per estimator family), and the first fully reliable one is
     kept; when none is, the first is returned with its flags."""
+    from core.credit.model import CreditModel
+
+    if isinstance(portfolio, CreditModel):
+        from core.credit.measures import credit_tail
+
+        return credit_tail(portfolio, levels=levels, layers=layers, losses=losses,
+                           method=method, precision=precision, seed=seed)
     start = time.monotonic()
     seed = check_seed(seed)
     precision = precision or Precision()

@@ -34,11 +34,13 @@ from core.exceedance import Z95, check_seed
 from core.functionals import spread_out
 from core.measures import (
     PILOT_SAMPLES,
+    Interval,
     Layer,
     MeasureEstimate,
     TailResult,
     _Curves,
     _grid,
+    _interp_log,
     _layer_error,
     _layers,
     _losses,
@@ -138,7 +140,7 @@ def credit_tail(
         if attempt == 2:
             warnings.append(f"VaR interval at levels {missing} runs past the estimation grid; "
                             "increase samples")
-    measures = [_measure(curves, float(level)) for level in q]
+    measures = [_snap(model, curves, _measure(curves, float(level))) for level in q]
     measures = [_with_contributions(model, name, m, precision, seed, start, i)
                 for i, m in enumerate(measures)]
     if run.stopped_by == "time_limit":
@@ -170,6 +172,39 @@ def _run(model, name, a, q, layers, losses, anchors, precision, seed, start):
     run = run_group(group, block_size(model), precision, seed, _STREAM + METHOD_STREAM[name],
                     deadline, error_of=error_of)
     return _Curves(a, run.stats), run
+
+
+def _snap_point(a: np.ndarray, x: float, h: float) -> float:
+    """The lattice point inside the grid cell (a_g, a_g+1] holding x, where the step-shaped
+    exceedance curve actually drops; x itself when the cell holds none or several."""
+    g = int(np.searchsorted(a, x)) - 1
+    if g < 0 or g + 1 >= a.size or a[g + 1] - a[g] > h:
+        return x
+    k = h * (math.floor(a[g] / h + 1e-9) + 1.0)
+    return k if k <= a[g + 1] * (1 + 1e-12) else x
+
+
+def _snap(model: CreditModel, curves: _Curves, m: MeasureEstimate) -> MeasureEstimate:
+    """On a lattice loss (fixed LGDs with a common unit h) P(L > a) is a step function and
+    the VaR a lattice point; interpolating between grid points would put the VaR and its
+    interval ends just past the jump, so they are moved onto it, and the TVaR recomputed
+    there (VaR + E[(L - VaR)+] / (1 - q))."""
+    h = model.lattice_unit
+    if h is None or m.var.value <= 0:
+        return m
+    a = curves.a
+    v = _snap_point(a, m.var.value, h)
+    lo, hi = _snap_point(a, m.var.ci_low, h), _snap_point(a, m.var.ci_high, h)
+    tail = 1.0 - m.level
+    sl = _interp_log(a, curves.sl, v)
+    sl_se = float(np.interp(v, a, curves.sl_se))
+    tvar = v + sl / tail
+    half = Z95 * sl_se / tail
+    return MeasureEstimate(
+        level=m.level, var=Interval(value=v, ci_low=min(lo, v), ci_high=max(hi, v)),
+        tvar=Interval(value=tvar, ci_low=max(v, tvar - half), ci_high=tvar + half,
+                      std_error=sl_se / tail),
+        diagnostics=m.diagnostics)
 
 
 def _with_contributions(model: CreditModel, name: str, m: MeasureEstimate,

@@ -13,6 +13,7 @@ factor of R, so b . Z = (A' b) . X: `loadings_x` holds the rows A' b_g.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 
@@ -142,6 +143,28 @@ class CreditModel:
     def mean(self) -> float:
         return float(sum(g.count * g.exposure * g.default_probability
                          * _lgd_mean(g.loss_given_default) for g in self.groups))
+
+    @property
+    def lattice_unit(self) -> float | None:
+        """The h with every loss an integer multiple of it (fixed LGDs whose losses per default
+        have a common measure), else None: the loss then has no lattice to snap a VaR to."""
+        if not self.fixed_lgd:
+            return None
+        units = sorted({g.exposure * g.loss_given_default.maximum for g in self.groups})
+        h = units[0]
+        for u in units[1:]:
+            a, b = u, h
+            for _ in range(64):  # Euclid on floats, with a tolerance
+                if b <= 1e-9 * u:
+                    break
+                a, b = b, math.fmod(a, b)
+                if b > 1e-9 * u and abs(b - a) <= 1e-9 * u:
+                    b = 0.0
+            h = a
+            if h < 1e-9 * units[-1]:
+                return None
+        ok = all(abs(u / h - round(u / h)) <= 1e-6 for u in units)
+        return h if ok else None
 
     @property
     def expected_defaults(self) -> float:

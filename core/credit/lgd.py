@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 from scipy import special
@@ -20,9 +21,6 @@ from core.validate import positive, real
 
 # Kummer's function overflows a double near t = 700; the twist never needs more than this.
 MAX_TILT = 600.0
-# Above this tilt (and for a >= 1) the tilted beta is drawn from a truncated gamma proposal,
-# whose acceptance tends to 1 as t grows; below it from the beta law itself.
-_GAMMA_SWITCH = 4.0
 
 
 @dataclass(frozen=True)
@@ -119,39 +117,50 @@ class BetaLGD:
     def sample(self, size: int, rng: np.random.Generator) -> np.ndarray:
         return rng.beta(self.a, self.b, size)
 
+    @cached_property
+    def _proposal_table(self) -> tuple[np.ndarray, np.ndarray]:
+        """log t grid and the b' in (0, b] maximising the rejection sampler's acceptance
+        -log B(a, b') - log max r at each t (the B(a, b) M(t) factor does not depend on b')."""
+        log_t = np.linspace(math.log(1e-3), math.log(MAX_TILT), 160)
+        t = np.exp(log_t)[:, None]
+        b2 = self.b * np.linspace(0.002, 1.0, 500)[None, :]
+        _, log_max = _envelope(t, self.b - b2)
+        score = -special.betaln(self.a, b2) - log_max
+        return log_t, b2[0, np.argmax(score, axis=1)]
+
     def sample_tilted(self, t: np.ndarray, rng: np.random.Generator) -> np.ndarray:
         """One draw from e^{t_i u} f(u) / M(t_i) per entry of t (t_i >= 0), exactly.
 
-        Beta proposal, accepted with probability e^{-t (1 - u)} (the tilt over its maximum).
-        For large t and a >= 1: v = 1 - u from a gamma(b, rate t) law cut at 1, accepted with
-        probability (1 - v)^{a - 1}, since e^{t u} u^{a-1} (1-u)^{b-1} = e^t e^{-t v}
-        v^{b-1} (1-v)^{a-1}. Both accept with probability bounded away from 0 in their range.
+        Rejection from a beta(a, b') law, b' <= b: the density ratio is proportional to
+        r(u) = e^{t u} (1 - u)^{b - b'}, bounded on [0, 1] with its maximum at
+        u* = max(0, 1 - (b - b') / t), so u is accepted with probability r(u) / r(u*). The
+        acceptance rate is B(a, b) M(t) / (B(a, b') r(u*)); b' comes from a table of its
+        maximiser over t (any b' <= b gives an exact sampler, so the table need not be exact).
         """
         t = np.minimum(np.asarray(t, dtype=float), MAX_TILT)
+        grid, best = self._proposal_table
+        b2 = np.interp(np.log(np.maximum(t, 1e-12)), grid, best)
+        gap, log_max = _envelope(t, self.b - b2)
         out = np.empty(t.size)
         todo = np.arange(t.size)
-        use_gamma = (t > _GAMMA_SWITCH) & (self.a >= 1.0)
         while todo.size:
-            tt = t[todo]
-            g = use_gamma[todo]
-            u = np.empty(todo.size)
-            ok = np.empty(todo.size, dtype=bool)
-            nb = int((~g).sum())
-            if nb:
-                ub = rng.beta(self.a, self.b, nb)
-                u[~g] = ub
-                ok[~g] = rng.random(nb) < np.exp(-tt[~g] * (1.0 - ub))
-            ng = int(g.sum())
-            if ng:
-                v = rng.gamma(self.b, 1.0 / tt[g])
-                u[g] = 1.0 - v
-                with np.errstate(invalid="ignore"):
-                    accept = np.where(v < 1.0, np.power(np.maximum(1.0 - v, 0.0),
-                                                        self.a - 1.0), 0.0)
-                ok[g] = rng.random(ng) < accept
+            u = rng.beta(self.a, b2[todo])
+            with np.errstate(divide="ignore"):
+                log_r = t[todo] * u + gap[todo] * np.log1p(-u) - log_max[todo]
+            ok = np.log(rng.random(todo.size)) < log_r
             out[todo[ok]] = u[ok]
             todo = todo[~ok]
         return out
+
+
+def _envelope(t: np.ndarray, gap: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(b - b', log max_u r(u)) for r(u) = e^{t u} (1 - u)^{b - b'} on [0, 1]."""
+    gap = np.maximum(gap, 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        top = np.where(gap < t, 1.0 - gap / np.maximum(t, 1e-300), 0.0)
+        log_max = np.where(gap > 0, t * top + gap * np.log1p(-np.minimum(top, 1.0 - 1e-16)),
+                           t)
+    return gap, log_max
 
 
 LGD = FixedLGD | BetaLGD

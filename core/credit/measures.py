@@ -141,8 +141,8 @@ def credit_tail(
             warnings.append(f"VaR interval at levels {missing} runs past the estimation grid; "
                             "increase samples")
     measures = [_snap(model, curves, _measure(curves, float(level))) for level in q]
-    measures = [_with_contributions(model, name, m, precision, seed, start, i)
-                for i, m in enumerate(measures)]
+    if measures:
+        measures = _with_contributions(model, name, measures, anchors, precision, seed, start)
     if run.stopped_by == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     for m in measures:
@@ -207,45 +207,62 @@ def _snap(model: CreditModel, curves: _Curves, m: MeasureEstimate) -> MeasureEst
         diagnostics=m.diagnostics)
 
 
-def _with_contributions(model: CreditModel, name: str, m: MeasureEstimate,
-                        precision: Precision, seed: int, start: float,
-                        index: int) -> MeasureEstimate:
-    v = m.var.value
-    if not (0 < v < model.max_loss):
-        return m
-    sampler = _sampler(model, name, [v])
-    gs = len(model.groups)
+def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEstimate],
+                        anchors: Sequence[float], precision: Precision, seed: int,
+                        start: float) -> list[MeasureEstimate]:
+    """One more run (the main run's proposal) for every level's A_g and S at its VaR."""
+    vs = np.array([m.var.value for m in measures])
+    use = (vs > 0) & (vs < model.max_loss)
+    if not use.any():
+        return measures
+    sampler = _sampler(model, name, anchors)
+    gs, nv = len(model.groups), int(use.sum())
+    at = vs[use]
 
     def block(n: int, rng: np.random.Generator) -> np.ndarray:
         d = sampler.draw(n, rng)
-        w = (np.exp(d.log_lr) * (d.total > v))[:, None]
-        a = d.group_loss * w
-        s = a.sum(axis=1, keepdims=True)
-        return np.hstack([a, s, a + s])
+        cols = []
+        for v in at:
+            w = (np.exp(d.log_lr) * (d.total > v))[:, None]
+            a = d.group_loss * w
+            s = a.sum(axis=1, keepdims=True)
+            cols += [a, s, a + s]
+        return np.hstack(cols)
 
-    group = Group((0,), block, work(model, name), "Euler")
+    group = Group((0,), block, work(model, name, len(spread_out(anchors))), "Euler")
     fixed = Precision(samples=precision.samples or precision.minimum,
                       time_limit_s=precision.time_limit_s)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     run = run_group(group, block_size(model), fixed, seed,
-                    _STREAM + (1 << 20) + (index << 8) + METHOD_STREAM[name], deadline)
-    mean = np.asarray(run.stats.mean(), dtype=float)
-    se = np.asarray(run.stats.std_error(), dtype=float)
-    var = se * se * run.stats.n  # per-sample variances
+                    _STREAM + (1 << 20) + METHOD_STREAM[name], deadline)
+    mean = np.asarray(run.stats.mean(), dtype=float).reshape(nv, 2 * gs + 1)
+    var = (np.asarray(run.stats.std_error(), dtype=float) ** 2 * run.stats.n).reshape(
+        nv, 2 * gs + 1)
+    out, j = [], 0
+    for m, used in zip(measures, use, strict=True):
+        if used:
+            m = _contributions(model, m, mean[j], var[j], run.stats.n)
+            j += 1
+        out.append(m)
+    return out
+
+
+def _contributions(model: CreditModel, m: MeasureEstimate, mean: np.ndarray,
+                   var: np.ndarray, n: int) -> MeasureEstimate:
+    gs = len(model.groups)
     a, s = mean[:gs], float(mean[gs])
     if s <= 0:
         return m
     var_a, var_s, var_sum = var[:gs], float(var[gs]), var[gs + 1:]
-    cov = 0.5 * (var_sum - var_a - var_s)
+    cov = 0.5 * (var_sum - var_a - var_s)  # cov(A_g, S) from var(A_g + S)
     r = a / s
-    var_r = np.maximum(var_a - 2 * r * cov + r * r * var_s, 0.0) / (s * s) / run.stats.n
+    var_r = np.maximum(var_a - 2 * r * cov + r * r * var_s, 0.0) / (s * s) / n
     tvar = m.tvar.value
     rel_t = (m.tvar.std_error or 0.0) / tvar if tvar > 0 else 0.0
     parts = []
     for g, grp in enumerate(model.groups):
         c = tvar * float(r[g])
-        with np.errstate(divide="ignore", invalid="ignore"):
-            rel = math.sqrt(float(var_r[g]) / float(r[g]) ** 2 + rel_t ** 2) if r[g] > 0 else 0
+        rel = math.sqrt(float(var_r[g]) / float(r[g]) ** 2 + rel_t**2) if r[g] > 0 else 0.0
         half = Z95 * c * rel
         parts.append(Contribution(label=grp.label or f"group {g}", tvar_contribution=c,
                                   ci_low=max(0.0, c - half), ci_high=c + half,

@@ -16,6 +16,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 from scipy import stats
@@ -66,6 +67,9 @@ class CreditModel:
     copula: str = "gaussian"
     df: float | None = None
     cholesky: np.ndarray = field(init=False, repr=False)
+    # Proposals found for this model (threshold -> factor shift), reused across estimators.
+    cache: dict[str, Any] = field(init=False, repr=False, compare=False,
+                                  default_factory=dict)
 
     def __post_init__(self) -> None:
         if not self.groups:

@@ -7,13 +7,14 @@ Chernoff bound of P(L > x | z). Under the t copula the mixing variable W joins t
 (the mode over (z, w) of phi(z) f_W(w) exp(F(z, w))), as in the two-step importance
 sampling of Bassamboo, Juneja and Zeevi (2008) for extremal dependence: small W, a common
 shock that raises every obligor's default probability, is how large losses happen there.
-The optimisation is deterministic (a fixed start and Nelder-Mead), so the proposal is a
+The optimisation is deterministic (a fixed grid start, then L-BFGS-B), so the proposal is a
 function of the model and threshold only, and the same seed gives the same answer.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -42,6 +43,16 @@ def log_bound(model: CreditModel, tables: LgdTables, x: np.ndarray, w: np.ndarra
 
 
 def find_shift(model: CreditModel, threshold: float) -> Shift:
+    """The mode of phi(x) [f_W(w)] exp(F(x, w)) over the independent factors x (and log w)."""
+    cache = model.cache.setdefault("shift", {})
+    if threshold in cache:
+        return cache[threshold]
+    shift = _find_shift(model, threshold)
+    cache[threshold] = shift
+    return shift
+
+
+def _find_shift(model: CreditModel, threshold: float) -> Shift:
     tables = LgdTables(model)
     k = model.factors
     student = model.copula == "student_t"
@@ -49,41 +60,49 @@ def find_shift(model: CreditModel, threshold: float) -> Shift:
     if k == 0 and not student:
         return Shift(np.zeros(0), None)
 
-    def objective(v: np.ndarray) -> float:
-        x = v[:k][None, :]
-        w = np.array([math.exp(v[k])]) if student else None
-        val = float(log_bound(model, tables, x, w, threshold)[0]) - 0.5 * float(v[:k] @ v[:k])
+    def values(v: np.ndarray) -> np.ndarray:
+        """-log of the objective at each row of v (factors, then log w for the t copula)."""
+        x = v[:, :k]
+        w = np.exp(v[:, k]) if student else None
+        val = log_bound(model, tables, x, w, threshold) - 0.5 * np.einsum("ij,ij->i", x, x)
         if w is not None:
-            val += float(stats.chi2.logpdf(w[0], nu))
-        return -val if math.isfinite(val) else 1e300
+            val = val + stats.chi2.logpdf(w, nu)
+        return np.where(np.isfinite(val), -val, 1e300)
 
-    start = _start(model, objective, student, nu)
-    if k + int(student) == 1:
-        res = optimize.minimize(objective, start, method="Nelder-Mead",
-                                options={"xatol": 1e-6, "fatol": 1e-9, "maxiter": 400})
-    else:
-        res = optimize.minimize(objective, start, method="Nelder-Mead",
-                                options={"xatol": 1e-5, "fatol": 1e-9, "maxiter": 2000,
-                                         "adaptive": True})
-    v = np.asarray(res.x, dtype=float) if res.fun <= objective(start) else start
+    dim = k + int(student)
+    step = 1e-5
+
+    def value_and_grad(v: np.ndarray) -> tuple[float, np.ndarray]:
+        # Central differences, all 2 dim + 1 points in one vectorised call.
+        pts = np.vstack([v, v + step * np.eye(dim), v - step * np.eye(dim)])
+        f = values(pts)
+        return float(f[0]), (f[1:dim + 1] - f[dim + 1:]) / (2 * step)
+
+    start = _start(model, values, student, nu)
+    res = optimize.minimize(value_and_grad, start, jac=True, method="L-BFGS-B",
+                            options={"maxiter": 200, "ftol": 1e-12, "gtol": 1e-7})
+    v = np.asarray(res.x, dtype=float)
+    if not float(values(v[None, :])[0]) <= float(values(start[None, :])[0]):
+        v = start
     return Shift(v[:k].copy(), math.exp(float(v[k])) if student else None)
 
 
-def _start(model: CreditModel, objective: object, student: bool, nu: float) -> np.ndarray:
-    """A line search along the direction in which the conditional mean loss rises fastest
-    (every loading pulling the factors down), over a grid of W values for the t copula."""
+def _start(model: CreditModel, values: Callable[[np.ndarray], np.ndarray], student: bool,
+           nu: float) -> np.ndarray:
+    """The best point of a line search along the direction in which the conditional mean loss
+    rises fastest (every loading pulling the factors down), over a grid of W values for the
+    t copula; one vectorised evaluation."""
     k = model.factors
     weights = model.counts * model.exposures * model.pds
     d = -(weights[:, None] * model.loadings_x).sum(axis=0)
     norm = float(np.linalg.norm(d))
     d = d / norm if norm > 0 else d
-    assert callable(objective)
-    best, best_v = math.inf, np.zeros(k + int(student))
-    ws = [math.log(nu)] if not student else list(np.log(nu * np.geomspace(1e-3, 1.0, 13)))
-    for lw in ws:
-        for lam in np.linspace(0.0, 10.0, 41) if k else [0.0]:
-            v = np.concatenate([lam * d, [lw] if student else []])
-            f = objective(v)
-            if f < best:
-                best, best_v = f, v
-    return best_v
+    lams = np.linspace(0.0, 10.0, 41) if k else np.zeros(1)
+    xs = lams[:, None] * d[None, :]
+    if student:
+        lws = np.log(nu * np.geomspace(1e-3, 1.0, 13))
+        xs = np.repeat(xs, lws.size, axis=0)
+        pts = np.hstack([xs, np.tile(lws, lams.size)[:, None]])
+    else:
+        pts = xs
+    return np.asarray(pts[int(np.argmin(values(pts)))], dtype=float)

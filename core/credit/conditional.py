@@ -58,7 +58,7 @@ class LgdTables:
 
     def approx(self, t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(log M, mean, variance) at tilts t of shape (m, G)."""
-        log_m = t * self.fixed[None, :]
+        log_m = np.asarray(t * self.fixed[None, :], dtype=float)
         mean = np.broadcast_to(self.fixed[None, :], t.shape).copy()
         var = np.zeros_like(t)
         for g, (lm, mu, v) in self.tables.items():
@@ -68,7 +68,7 @@ class LgdTables:
         return log_m, mean, var
 
     def log_mgf_exact(self, t: np.ndarray) -> np.ndarray:
-        out = t * self.fixed[None, :]
+        out = np.asarray(t * self.fixed[None, :], dtype=float)
         for g, lg in enumerate(self.model.lgds):
             if isinstance(lg, BetaLGD):
                 out[:, g] = lg.log_mgf(t[:, g])
@@ -77,7 +77,8 @@ class LgdTables:
 
 def psi(cond: Conditional, counts: np.ndarray, log_m: np.ndarray) -> np.ndarray:
     """psi per sample: sum_g n_g log(1 - p_g + p_g M_g), in log space."""
-    return (np.logaddexp(cond.log_q, cond.log_p + log_m) * counts[None, :]).sum(axis=1)
+    terms = np.logaddexp(cond.log_q, cond.log_p + log_m) * counts[None, :]
+    return np.asarray(terms.sum(axis=1), dtype=float)
 
 
 def theta_max(model: CreditModel) -> float:

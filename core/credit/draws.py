@@ -61,8 +61,9 @@ def w_shape_for(model: CreditModel, shift: Shift) -> float | None:
 def _log_w_ratio(model: CreditModel, shape: float, w: np.ndarray) -> np.ndarray:
     """log g/f of the mixing variable: gamma(shape, scale 2) over chi-square(df)."""
     half = 0.5 * float(model.df or 1.0)
-    return ((shape - half) * np.log(w) + special.gammaln(half) - special.gammaln(shape)
-            + (half - shape) * math.log(2.0))
+    out = ((shape - half) * np.log(w) + special.gammaln(half) - special.gammaln(shape)
+           + (half - shape) * math.log(2.0))
+    return np.asarray(out, dtype=float)
 
 
 def _draw_losses(model: CreditModel, tables: LgdTables, cond: Conditional, theta: np.ndarray,
@@ -150,7 +151,7 @@ class Sampler:
             log_m = self.tables.log_mgf_exact(th[:, None] * e)
             log_g = log_g + th * total - psi(cond, counts, log_m)
             terms.append(math.log(self.weights[c]) + log_g)
-        return -np.logaddexp.reduce(np.vstack(terms), axis=0)
+        return np.asarray(-np.logaddexp.reduce(np.vstack(terms), axis=0), dtype=float)
 
 
 def _rows(cond: Conditional, sel: np.ndarray) -> Conditional:

@@ -71,7 +71,8 @@ def _twisted_group(model: CreditModel, i: int, x: float) -> Group:
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         d = sampler.draw(m, rng)
-        return (d.total[:, None] > xs[None, :]) * np.exp(d.log_lr)[:, None]
+        return np.asarray((d.total[:, None] > xs[None, :]) * np.exp(d.log_lr)[:, None],
+                          dtype=float)
 
     mu = ", ".join(f"{v:.3g}" for v in comp.shift.mu)
     detail = f"Glasserman-Li: factor shift [{mu}], conditional twist to {x:g}"

@@ -98,13 +98,14 @@ class BetaLGD:
     def log_mgf(self, t: np.ndarray) -> np.ndarray:
         """log E[e^{t U}] = log 1F1(a; a + b; t), exact."""
         t = np.minimum(np.asarray(t, dtype=float), MAX_TILT)
-        return np.log(special.hyp1f1(self.a, self.a + self.b, t))
+        return np.asarray(np.log(special.hyp1f1(self.a, self.a + self.b, t)), dtype=float)
 
     def tilted_mean(self, t: np.ndarray) -> np.ndarray:
         # d/dt log 1F1(a; c; t) = (a / c) 1F1(a + 1; c + 1; t) / 1F1(a; c; t).
         t = np.minimum(np.asarray(t, dtype=float), MAX_TILT)
         a, c = self.a, self.a + self.b
-        return a / c * special.hyp1f1(a + 1, c + 1, t) / special.hyp1f1(a, c, t)
+        return np.asarray(a / c * special.hyp1f1(a + 1, c + 1, t) / special.hyp1f1(a, c, t),
+                          dtype=float)
 
     def tilted_variance(self, t: np.ndarray) -> np.ndarray:
         t = np.minimum(np.asarray(t, dtype=float), MAX_TILT)
@@ -112,7 +113,7 @@ class BetaLGD:
         m0 = special.hyp1f1(a, c, t)
         m1 = a / c * special.hyp1f1(a + 1, c + 1, t) / m0
         m2 = a * (a + 1) / (c * (c + 1)) * special.hyp1f1(a + 2, c + 2, t) / m0
-        return np.maximum(m2 - m1 * m1, 0.0)
+        return np.asarray(np.maximum(m2 - m1 * m1, 0.0), dtype=float)
 
     def sample(self, size: int, rng: np.random.Generator) -> np.ndarray:
         return rng.beta(self.a, self.b, size)

@@ -18,7 +18,8 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
+from typing import cast
 
 import numpy as np
 from scipy import stats
@@ -29,7 +30,7 @@ from core.credit.exceedance import check_method, choose
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
 from core.diagnostics import ContributionStats
-from core.estimators.base import Group
+from core.estimators.base import BlockFn, Group
 from core.exceedance import Z95, check_seed
 from core.functionals import spread_out
 from core.measures import (
@@ -50,7 +51,7 @@ from core.measures import (
     layout_block,
     point_columns,
 )
-from core.precision import Precision, run_group
+from core.precision import GroupRun, Precision, run_group
 from core.results import Contribution
 from core.sampling import PILOT, block_rng
 
@@ -75,7 +76,7 @@ def guess_var(model: CreditModel, q: float) -> float:
     return float(max((model.counts * model.exposures * mu * p).sum(), model.mean))
 
 
-def _values(sampler: Sampler, points: np.ndarray):
+def _values(sampler: Sampler, points: np.ndarray) -> BlockFn:
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         d = sampler.draw(m, rng)
         lr = np.exp(d.log_lr)[:, None]
@@ -161,14 +162,17 @@ def credit_tail(
         warnings=warnings)
 
 
-def _run(model, name, a, q, layers, losses, anchors, precision, seed, start):
+def _run(model: CreditModel, name: str, a: np.ndarray, q: np.ndarray,
+         layers: Sequence[Layer], losses: Sequence[float], anchors: Sequence[float],
+         precision: Precision, seed: int, start: float) -> tuple[_Curves, GroupRun]:
     extra = point_columns(layers, losses)
     points = np.concatenate([a, np.asarray(extra, dtype=float)])
     block = layout_block(_values(_sampler(model, name, anchors), points), a.size, layers,
                          losses)
     group = Group((0,), block, work(model, name, len(spread_out(anchors))), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    error_of = _var_error(q, a) if q.size else _layer_error(a.size, len(layers))
+    error_of = cast(Callable[[ContributionStats], float],
+                    _var_error(q, a) if q.size else _layer_error(a.size, len(layers)))
     run = run_group(group, block_size(model), precision, seed, _STREAM + METHOD_STREAM[name],
                     deadline, error_of=error_of)
     return _Curves(a, run.stats), run

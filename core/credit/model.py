@@ -112,12 +112,12 @@ class CreditModel:
         """(G, k): row g is A' b_g, the loadings on the independent factors X."""
         b = np.array([g.factor_loadings for g in self.groups], dtype=float).reshape(
             len(self.groups), self.factors)
-        return b @ self.cholesky
+        return np.asarray(b @ self.cholesky, dtype=float)
 
     @property
     def residual_sd(self) -> np.ndarray:
         bx = self.loadings_x
-        return np.sqrt(1.0 - np.einsum("gk,gk->g", bx, bx))
+        return np.asarray(np.sqrt(1.0 - np.einsum("gk,gk->g", bx, bx)), dtype=float)
 
     @property
     def thresholds(self) -> np.ndarray:

@@ -28,7 +28,8 @@ def _phi2(a: np.ndarray, b: np.ndarray, r: np.ndarray) -> np.ndarray:
     one = 1.0 - rho * rho
     expo = -(a * a - 2.0 * rho * a * b + b * b) / (2.0 * one)
     dens = np.exp(expo) / (2.0 * math.pi * np.sqrt(one))
-    return special.ndtr(a) * special.ndtr(b) + 0.5 * r * (weights[:, None] * dens).sum(axis=0)
+    out = special.ndtr(a) * special.ndtr(b) + 0.5 * r * (weights[:, None] * dens).sum(axis=0)
+    return np.asarray(out, dtype=float)
 
 
 def loss_moments(model: CreditModel) -> tuple[float, float]:

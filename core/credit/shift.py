@@ -46,7 +46,8 @@ def find_shift(model: CreditModel, threshold: float) -> Shift:
     """The mode of phi(x) [f_W(w)] exp(F(x, w)) over the independent factors x (and log w)."""
     cache = model.cache.setdefault("shift", {})
     if threshold in cache:
-        return cache[threshold]
+        found: Shift = cache[threshold]
+        return found
     shift = _find_shift(model, threshold)
     cache[threshold] = shift
     return shift

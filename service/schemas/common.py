@@ -228,7 +228,9 @@ class PortfolioSpec(RequestModel):
 
 # --- method and precision -------------------------------------------------------------------
 
-Method = Literal[
+Method = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion"]
+# Portfolio requests also take the credit estimator (ruin keeps Method).
+PortfolioMethod = Literal[
     "auto", "crude", "tilted", "conditional", "conditional_is", "recursion", "glasserman_li"
 ]
 
@@ -289,7 +291,7 @@ class PortfolioRequest(RequestModel):
     """Fields shared by every request that computes figures of a portfolio's loss S."""
 
     portfolio: PortfolioSpec = Field(description="The portfolio loss model: its lines.")
-    method: Method = Field(default="auto", description=METHOD_DESCRIPTION)
+    method: PortfolioMethod = Field(default="auto", description=METHOD_DESCRIPTION)
     precision: PrecisionSpec = Field(
         default_factory=PrecisionSpec,
         description="Precision target and budgets; server limits apply to every budget.",

@@ -32,7 +32,7 @@ from core.portfolio import Portfolio
 if TYPE_CHECKING:
     from core.credit.model import CreditModel
 from core.precision import Precision, run_group
-from core.results import Contribution, Diagnostics
+from core.results import Diagnostics
 from core.sampling import PILOT, block_rng, block_size
 
 GRID = 64
@@ -63,12 +63,21 @@ class Interval:
 
 
 @dataclass(frozen=True, kw_only=True)
+class Contribution:
+    """A line's Euler allocation of TVaR, E[S_i | S > VaR], scaled so the lines sum to TVaR."""
+
+    label: str
+    tvar_contribution: float
+    ci_low: float
+    ci_high: float
+
+
+@dataclass(frozen=True, kw_only=True)
 class MeasureEstimate:
     level: float
     var: Interval
     tvar: Interval
     diagnostics: Diagnostics
-    # Euler allocation of the TVaR to the portfolio's parts (credit: obligor groups).
     contributions: list[Contribution] = field(default_factory=list)
 
 
@@ -337,7 +346,7 @@ def layout_block(
 
     def block(m: int, rng: np.random.Generator) -> np.ndarray:
         v = values(m, rng)
-        exceed, sl = v[:, :g + e], v[:, g + e:]
+        exceed, sl = v[:, :g + e], v[:, g + e:2 * (g + e)]
         cols = [exceed[:, :g], sl[:, :g]]
         for i, ly in enumerate(layers):
             top = sl[:, g + n_layers + i] if ly.limit is not None else 0.0
@@ -345,6 +354,7 @@ def layout_block(
                      exceed[:, g + n_layers + i:g + n_layers + i + 1]]
         if len(losses):
             cols.append(exceed[:, g + 2 * n_layers:])
+        cols.append(v[:, 2 * (g + e):])  # any further columns (e.g. Euler terms), kept last
         # Differences of monotone per-sample values are >= 0 up to rounding.
         return np.maximum(np.hstack(cols), 0.0)
 

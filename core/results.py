@@ -50,17 +50,6 @@ class ExceedanceEstimate(Estimate):
 
 
 @dataclass(frozen=True, kw_only=True)
-class Contribution:
-    """A part's Euler allocation of the TVaR, E-weighted so that the parts sum to the TVaR."""
-
-    label: str
-    tvar_contribution: float
-    ci_low: float
-    ci_high: float
-    std_error: float | None = None
-
-
-@dataclass(frozen=True, kw_only=True)
 class ExceedanceResult:
     method: str
     method_reason: str

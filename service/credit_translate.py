@@ -62,8 +62,8 @@ def _where(parameter: str, paths: list[str]) -> str:
     if parameter.startswith("groups."):
         _, g, *rest = parameter.split(".")
         return ".".join([paths[int(g)], *rest])
-    if parameter == "correlation":
-        return "portfolio.factors.correlation"
+    if parameter == "correlation" or parameter.startswith("correlation."):
+        return f"portfolio.factors.{parameter}"
     if parameter in ("copula", "df"):
         return f"portfolio.dependence.{parameter}"
     return f"portfolio.{parameter}"

@@ -35,6 +35,7 @@ from core.exceedance import Z95, check_seed
 from core.functionals import spread_out
 from core.measures import (
     PILOT_SAMPLES,
+    Contribution,
     Interval,
     Layer,
     MeasureEstimate,
@@ -52,7 +53,6 @@ from core.measures import (
     point_columns,
 )
 from core.precision import GroupRun, Precision, run_group
-from core.results import Contribution
 from core.sampling import PILOT, block_rng
 
 _STREAM = 9 << 24
@@ -269,7 +269,6 @@ def _contributions(model: CreditModel, m: MeasureEstimate, mean: np.ndarray,
         rel = math.sqrt(float(var_r[g]) / float(r[g]) ** 2 + rel_t**2) if r[g] > 0 else 0.0
         half = Z95 * c * rel
         parts.append(Contribution(label=grp.label or f"group {g}", tvar_contribution=c,
-                                  ci_low=max(0.0, c - half), ci_high=c + half,
-                                  std_error=c * rel))
+                                  ci_low=max(0.0, c - half), ci_high=c + half))
     return MeasureEstimate(level=m.level, var=m.var, tvar=m.tvar, diagnostics=m.diagnostics,
                            contributions=parts)

@@ -7,8 +7,9 @@ factors are independent, as the contract writes it). Under the student_t copula 
 variable is divided by sqrt(W / df), W chi-square(df) common to all obligors, and
 c_g = t_df^{-1}(PD) so that PD stays each obligor's default probability.
 
-Internally the factors are Z = A X with X independent standard normal and A the Cholesky
-factor of R, so b . Z = (A' b) . X: `loadings_x` holds the rows A' b_g.
+Internally the factors are Z = A X with X independent standard normal and A A' = R (the
+copula layer's check and factor, core.dependence.copula: Cholesky, or the eigen factor for a
+semi-definite R), so b . Z = (A' b) . X: `loadings_x` holds the rows A' b_g.
 """
 
 from __future__ import annotations
@@ -22,10 +23,10 @@ import numpy as np
 from scipy import stats
 
 from core.credit.lgd import LGD, BetaLGD, FixedLGD
+from core.dependence.copula import COPULAS, check_correlation, correlation_factor
 from core.errors import ParameterError
 from core.validate import integer, positive, real
 
-COPULAS = ("gaussian", "student_t")
 # Latent variables with b' R b this close to 1 leave no idiosyncratic part to speak of.
 _MAX_SYSTEMATIC = 1.0 - 1e-9
 
@@ -180,24 +181,14 @@ def _lgd_mean(lgd: LGD) -> float:
 
 
 def _cholesky(correlation: np.ndarray | None, k: int) -> np.ndarray:
-    """The lower Cholesky factor of the factor correlation (identity when absent)."""
+    """A factor A with A A' = R (identity when absent), from the copula layer's checks."""
     if correlation is None:
         return np.eye(k)
     r = np.asarray(correlation, dtype=float)
     if r.shape != (k, k):
-        raise ParameterError("correlation", f"must be a {k} x {k} matrix, got shape {r.shape}")
-    if not np.all(np.isfinite(r)):
-        raise ParameterError("correlation", "entries must be finite")
-    if not np.allclose(r, r.T, atol=1e-12):
-        raise ParameterError("correlation", "must be symmetric")
-    if not np.allclose(np.diag(r), 1.0, atol=1e-12):
-        raise ParameterError("correlation", "must have ones on the diagonal")
-    if np.any(np.abs(r) > 1.0):
-        raise ParameterError("correlation", "entries must lie in [-1, 1]")
-    try:
-        return np.linalg.cholesky(r)
-    except np.linalg.LinAlgError:
-        raise ParameterError("correlation", "must be positive definite") from None
+        raise ParameterError("correlation", f"must be a {k} x {k} matrix (one row and column "
+                                            f"per factor), got shape {r.shape}")
+    return correlation_factor(check_correlation(r, size=k, name="correlation"))
 
 
 def group(*, count: int, exposure: float, default_probability: float,

@@ -150,6 +150,5 @@ def test_var_and_tvar_match_the_quadrature_law_and_euler_parts_sum_to_tvar() -> 
     assert sum(p.tvar_contribution for p in parts) == pytest.approx(m.tvar.value, rel=1e-12)
     # Two identical groups (a fact of symmetry): equal shares within their intervals.
     a, b = parts
-    assert a.std_error is not None and b.std_error is not None
-    assert abs(a.tvar_contribution - b.tvar_contribution) <= 4 * math.hypot(
-        a.std_error, b.std_error)
+    se_a, se_b = ((p.ci_high - p.ci_low) / (2 * 1.959963984540054) for p in parts)
+    assert abs(a.tvar_contribution - b.tvar_contribution) <= 4 * math.hypot(se_a, se_b)

@@ -134,7 +134,11 @@ def test_refusals_name_the_field(client: TestClient) -> None:
     assert _refusal(client, p)["loc"] == ["body", "portfolio", "factors"]
     p = copy.deepcopy(TWO_LINES)
     p["factors"]["correlation"] = [[1.0, 1.2], [1.2, 1.0]]
-    assert _refusal(client, p)["loc"] == ["body", "portfolio", "factors", "correlation"]
+    e = _refusal(client, p)
+    assert e["loc"] == ["body", "portfolio", "factors", "correlation", 0, 1], e
+    p["factors"]["correlation"] = [[1.0, 0.5], [0.5, 1.0], [0.0, 0.0]]
+    e = _refusal(client, p)
+    assert e["loc"] == ["body", "portfolio", "factors", "correlation"] and "2 x 2" in e["msg"]
     mixed = copy.deepcopy(ONE_FACTOR)
     mixed["lines"].append({"count": {"kind": "fixed", "n": 1},
                            "severity": {"family": "exponential", "mean": 1.0}})

@@ -4,9 +4,11 @@ The zero-variance density of the factors for P(L > x) is proportional to
 phi(z) P(L > x | z). Glasserman and Li shift the factor mean to the mode of the
 approximation phi(z) exp(F(z)), F(z) = min_theta [psi(theta; z) - theta x] the log of the
 Chernoff bound of P(L > x | z). Under the t copula the mixing variable W joins the search
-(the mode over (z, w) of phi(z) f_W(w) exp(F(z, w))), as in the two-step importance
-sampling of Bassamboo, Juneja and Zeevi (2008) for extremal dependence: small W, a common
-shock that raises every obligor's default probability, is how large losses happen there.
+(the mode over (z, w) of phi(z) f_W(w) exp(F(z, w))), in the spirit of the two-step
+importance sampling of Bassamboo, Juneja and Zeevi (2008) for extremal dependence (quoted from
+memory: change the mixing variable's law, then twist given it): small W, a common shock that
+raises every obligor's default probability, is how large losses happen there. The law W is
+then drawn from (a gamma of smaller shape, core.credit.draws) is our own choice.
 The optimisation is deterministic (a fixed grid start, then L-BFGS-B), so the proposal is a
 function of the model and threshold only, and the same seed gives the same answer.
 """

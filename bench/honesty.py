@@ -280,7 +280,8 @@ def cases(quick: bool) -> list[Row]:
                        precision=Precision(samples=n_big, time_limit_s=10.0), seed=3)
             dt = time.monotonic() - t0
             for e in res.estimates:
-                rows.append(Row(f"ruin gamma(3) load 0.1 [{res.method}]", f"P(ruin | u={e.capital:g})",
+                rows.append(Row(f"ruin gamma(3) load 0.1 [{res.method}]",
+                                f"P(ruin | u={e.capital:g})",
                                 e.value, e.ci_low, e.ci_high, e.std_error,
                                 erlang_ruin(1.0, 0.1, 3, 1.0, e.capital),
                                 e.diagnostics.reliable, dt, note=f"stopped_by {res.stopped_by}"))

@@ -137,7 +137,8 @@ def check_tail(measures: Sequence[M], layers: Sequence[L]) -> tuple[list[M], lis
                 problems.append(f"the {name} interval is reversed")
             elif not _ordered(iv.ci_low, iv.value, iv.ci_high):
                 problems.append(f"{name} lies outside its interval")
-        if _finite(m.var.value, m.tvar.value) and m.tvar.value < m.var.value - _ULPS * abs(m.var.value):
+        var, tvar = m.var.value, m.tvar.value
+        if _finite(var, tvar) and tvar < var - _ULPS * abs(var):
             problems.append("tvar is below var")
         if problems:
             why = "invariant violated: " + "; ".join(problems)

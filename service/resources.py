@@ -9,6 +9,7 @@ from typing import Any
 
 import core
 from core import measures
+from core.credit import CreditModel
 from core.errors import LimitError, TailgaugeError
 from service import limits, translate
 from service.pipeline import EngineCall, Resource
@@ -20,11 +21,12 @@ from service.schemas.ruin import RuinRequest, RuinResponse
 from service.settings import Settings
 
 
-def _portfolio(request: PortfolioRequest, settings: Settings) -> core.Portfolio:
+def _portfolio(request: PortfolioRequest, settings: Settings) -> core.Portfolio | CreditModel:
     """The request's portfolio as core objects, within the server's size limits."""
     limits.check_portfolio_size(request.portfolio, settings)
     model = translate.portfolio(request.portfolio)
-    limits.check_expected_claims(model, settings)
+    if isinstance(model, core.Portfolio):  # a credit book's cost is limited by its obligors
+        limits.check_expected_claims(model, settings)
     return model
 
 

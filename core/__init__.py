@@ -30,8 +30,7 @@ from core.severities import (
     Severity,
     Weibull,
 )
-
-ENGINE_VERSION = "0.1.0"
+from core.version import ENGINE_VERSION
 
 __all__ = [
     "ENGINE_VERSION",

@@ -50,8 +50,8 @@ from core import (
     Poisson,
     Portfolio,
     Precision,
-    exceedance,
 )
+from core.exceedance import exceedance
 from core.recursion import exceedance_bounds
 
 OUT = Path(__file__).resolve().parent / "out"

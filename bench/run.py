@@ -19,16 +19,8 @@ from pathlib import Path
 import numpy as np
 from scipy import stats
 
-from core import (
-    Fixed,
-    Gamma,
-    Line,
-    Lognormal,
-    Poisson,
-    Portfolio,
-    Precision,
-    exceedance,
-)
+from core import Fixed, Gamma, Line, Lognormal, Poisson, Portfolio, Precision
+from core.exceedance import exceedance
 
 OUT = Path(__file__).resolve().parent / "out"
 
@@ -272,7 +264,8 @@ def diagnostics_cost(samples: int, repeats: int = 3) -> list[list]:
 def ruin_table(samples: int) -> list[list]:
     """The ruin issue's cases against the exponential closed form (Siegmund) and the
     subexponential asymptotic / recursion for heavy tails."""
-    from core import Exponential, Pareto, SurplusProcess, ruin
+    from core import Exponential, Pareto, SurplusProcess
+    from core.ruin.api import ruin
 
     rows = []
     theta = 0.1

@@ -28,7 +28,8 @@ from typing import Any
 
 import httpx
 
-from core import Line, Lognormal, Poisson, Portfolio, Precision, exceedance
+from core import Line, Lognormal, Poisson, Portfolio, Precision
+from core.exceedance import exceedance
 
 OUT = Path(__file__).resolve().parent / "out"
 THRESHOLDS = [300.0, 1500.0]

@@ -14,104 +14,35 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
-from scipy import stats
 
 from core.diagnostics import ContributionStats
-from core.errors import ParameterError
 from core.estimators import select
 from core.estimators.base import Group, work_per_sample
 from core.exceedance import Z95, check_seed
 from core.functionals import sampler
+from core.levels import Layer, check_levels, guess_var
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
-from core.results import Diagnostics
+from core.recursion_measures import tail_bounds
+from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
 from core.sampling import PILOT, block_rng, block_size
+
+# Layer and the result records live in core.levels and core.results; named here for callers.
+__all__ = [
+    "Interval",
+    "Layer",
+    "LayerEstimate",
+    "MeasureEstimate",
+    "TailResult",
+    "tail_estimates",
+]
 
 GRID = 64
 PILOT_SAMPLES = 8192
 _STREAM = 5 << 24
-
-
-@dataclass(frozen=True, kw_only=True)
-class Layer:
-    """An aggregate layer: pays min((S - attachment)+, limit); limit None = unlimited."""
-
-    attachment: float
-    limit: float | None = None
-
-    def __post_init__(self) -> None:
-        if not (math.isfinite(self.attachment) and self.attachment >= 0):
-            raise ParameterError("attachment", f"must be finite and >= 0, got {self.attachment}")
-        if self.limit is not None and not (math.isfinite(self.limit) and self.limit > 0):
-            raise ParameterError("limit", f"must be finite and > 0 (or null), got {self.limit}")
-
-
-@dataclass(frozen=True, kw_only=True)
-class Interval:
-    value: float
-    ci_low: float
-    ci_high: float
-    std_error: float | None = None
-
-
-@dataclass(frozen=True, kw_only=True)
-class MeasureEstimate:
-    level: float
-    var: Interval
-    tvar: Interval
-    diagnostics: Diagnostics
-
-
-@dataclass(frozen=True, kw_only=True)
-class LayerEstimate:
-    attachment: float
-    limit: float | None
-    expected_loss: Interval
-    probability_attach: Interval
-    probability_exhaust: Interval | None
-    diagnostics: Diagnostics
-
-
-@dataclass(frozen=True, kw_only=True)
-class TailResult:
-    method: str
-    method_reason: str
-    seed: int
-    elapsed_s: float
-    stopped_by: str
-    samples: int
-    mean: float
-    std_dev: float
-    measures: list[MeasureEstimate] = field(default_factory=list)
-    layers: list[LayerEstimate] = field(default_factory=list)
-    loss_exceedance: list[Interval] = field(default_factory=list)
-    warnings: list[str] = field(default_factory=list)
-
-
-def check_levels(levels: Sequence[float]) -> np.ndarray:
-    q = np.asarray(levels, dtype=float)
-    if q.ndim != 1 or q.size == 0:
-        raise ParameterError("levels", "must be a non-empty list of numbers")
-    for i, v in enumerate(q):
-        if not (0.0 < v < 1.0):
-            raise ParameterError(f"levels.{i}", f"must be strictly between 0 and 1, got {v}")
-    return q
-
-
-def guess_var(portfolio: Portfolio, q: float) -> float:
-    """A rough VaR for placing the pilot grid: the larger of a normal approximation and the
-    single-loss approximation (Boecker and Klueppelberg 2005) of the heaviest line."""
-    guess = portfolio.mean + float(stats.norm.isf(1.0 - q)) * portfolio.std_dev
-    for line in portfolio.lines:
-        lam = line.paid_count.mean
-        if lam > 0 and line.paid_severity.tail == "heavy":
-            p = min((1.0 - q) / lam, 0.5)
-            guess = max(guess, float(line.paid_severity.isf(p)) + portfolio.mean)
-    return float(guess) if math.isfinite(guess) else float(portfolio.mean * 10)
 
 
 def _invert(a: np.ndarray, curve: np.ndarray, p: float) -> float | None:
@@ -208,8 +139,6 @@ def tail_estimates(
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
     if method == "recursion":
-        from core.recursion_measures import tail_bounds
-
         return tail_bounds(portfolio, levels=list(q), layers=layers, losses=losses, seed=seed)
     names, reason = _choose(portfolio, q, _extra_points(layers, losses), method, seed)
     first: TailResult | None = None
@@ -389,36 +318,3 @@ def _losses(curves: _Curves, n_layers: int, losses: Sequence[float]) -> list[Int
     return [_interval(float(curves.extra[base + i]), float(curves.extra_se[base + i]),
                       curves.stats.n)
             for i in range(len(losses))]
-
-
-@dataclass(frozen=True, kw_only=True)
-class CurvePoint:
-    """A point of the exceedance curve: the loss with the given return period (years), or
-    the return period of the given loss."""
-
-    return_period: float
-    loss: float
-    loss_ci_low: float
-    loss_ci_high: float
-    probability: float
-
-
-def exceedance_curve(
-    portfolio: Portfolio, *, return_periods: Sequence[float] = (), losses: Sequence[float] = (),
-    method: str = "auto", precision: Precision | None = None, seed: int | None = None,
-) -> tuple[list[CurvePoint], list[CurvePoint], TailResult]:
-    """Losses at return periods T (the VaR at level 1 - 1/T) and return periods 1/P(S > loss)
-    of given losses, from one sample set."""
-    for i, t in enumerate(return_periods):
-        if not (math.isfinite(t) and t > 1.0):
-            raise ParameterError(f"return_periods.{i}", f"must be a number of years > 1, got {t}")
-    levels = [1.0 - 1.0 / t for t in return_periods]
-    res = tail_estimates(portfolio, levels=levels, losses=losses, method=method,
-                         precision=precision, seed=seed)
-    by_period = [CurvePoint(return_period=t, loss=m.var.value, loss_ci_low=m.var.ci_low,
-                            loss_ci_high=m.var.ci_high, probability=1.0 / t)
-                 for t, m in zip(return_periods, res.measures, strict=True)]
-    by_loss = [CurvePoint(return_period=(1.0 / p.value) if p.value > 0 else math.inf,
-                          loss=x, loss_ci_low=x, loss_ci_high=x, probability=p.value)
-               for x, p in zip(losses, res.loss_exceedance, strict=True)]
-    return by_period, by_loss, res

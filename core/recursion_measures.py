@@ -19,17 +19,10 @@ import numpy as np
 
 from core.discretise import Grid, Lattice
 from core.errors import LimitError, MethodError
-from core.measures import (
-    Interval,
-    Layer,
-    LayerEstimate,
-    MeasureEstimate,
-    TailResult,
-    guess_var,
-)
+from core.levels import Layer, guess_var
 from core.portfolio import Portfolio
 from core.recursion import aggregate
-from core.results import Diagnostics
+from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
 
 DEFAULT_CELLS = 16_384
 

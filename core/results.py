@@ -105,3 +105,53 @@ class RuinResult:
     estimates: list[RuinEstimate]
     capital_for_target: CapitalForTarget | None = None
     warnings: list[str] = field(default_factory=list)
+
+
+@dataclass(frozen=True, kw_only=True)
+class Interval:
+    """A figure with its 95% interval (std_error None where it is not a mean of samples)."""
+
+    value: float
+    ci_low: float
+    ci_high: float
+    std_error: float | None = None
+
+
+@dataclass(frozen=True, kw_only=True)
+class MeasureEstimate:
+    """VaR and TVaR at one level."""
+
+    level: float
+    var: Interval
+    tvar: Interval
+    diagnostics: Diagnostics
+
+
+@dataclass(frozen=True, kw_only=True)
+class LayerEstimate:
+    """An aggregate layer's expected loss and its attachment and exhaustion probabilities."""
+
+    attachment: float
+    limit: float | None
+    expected_loss: Interval
+    probability_attach: Interval
+    probability_exhaust: Interval | None
+    diagnostics: Diagnostics
+
+
+@dataclass(frozen=True, kw_only=True)
+class TailResult:
+    """Risk measures, layers and loss exceedance from one sample set (or recursion bounds)."""
+
+    method: str
+    method_reason: str
+    seed: int
+    elapsed_s: float
+    stopped_by: str
+    samples: int
+    mean: float
+    std_dev: float
+    measures: list[MeasureEstimate] = field(default_factory=list)
+    layers: list[LayerEstimate] = field(default_factory=list)
+    loss_exceedance: list[Interval] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)

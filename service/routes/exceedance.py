@@ -35,7 +35,7 @@ async def handle(
     job = compute.prepare(body, settings)
     result = await compute.run_engine(
         pool,
-        core.exceedance,
+        core.estimate_exceedance,
         job.portfolio,
         body.thresholds,
         wall_limit_s=job.budget.wall_limit_s,

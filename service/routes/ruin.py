@@ -64,7 +64,7 @@ async def handle(
     try:
         result = await compute.run_engine(
             pool,
-            core.ruin,
+            core.ruin_probability,
             process,
             body.capital,
             wall_limit_s=budget.wall_limit_s,

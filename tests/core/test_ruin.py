@@ -20,8 +20,8 @@ from core import (
     Precision,
     SurplusProcess,
     Weibull,
-    ruin,
 )
+from core.ruin.api import ruin
 from core.ruin.geometric import geometric_sum
 from core.ruin.measure import claim_tilt, siegmund_tilt
 from core.ruin.paths import PathPlan, passage_values

@@ -18,7 +18,8 @@ import functools
 import pytest
 
 from bench.panel import CASES, Case, methods_for, thresholds
-from core import MethodError, Precision, exceedance
+from core import MethodError, Precision
+from core.exceedance import exceedance
 from core.recursion import exceedance_bounds
 
 SEARCH_CELLS = 512  # where the thresholds are found: only "near" the target levels matters

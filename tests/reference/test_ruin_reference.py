@@ -11,9 +11,10 @@ import pytest
 from scipy import integrate, stats
 from scipy.linalg import expm
 
-from core import Exponential, Lognormal, Pareto, Poisson, Precision, SurplusProcess, ruin
+from core import Exponential, Lognormal, Pareto, Poisson, Precision, SurplusProcess
 from core.portfolio import Line, Portfolio
 from core.recursion import aggregate_bounds, exceedance_bounds
+from core.ruin.api import ruin
 from core.ruin.geometric import geometric_sum
 from core.severities import PhaseType
 

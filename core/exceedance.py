@@ -17,6 +17,7 @@ from core.portfolio import Portfolio
 from core.precision import GroupRun, Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.sampling import block_size
+from core.streams import Purpose, Stream
 
 METHODS = ("auto", "crude", "tilted", "conditional", "conditional_is", "recursion")
 Z95 = 1.959963984540054
@@ -85,7 +86,7 @@ def _run(
         if only is not None and not only.intersection(group.indices):
             continue
         # Each method has its own streams so a fallback never reuses the first one's draws.
-        stream = gid + (select.METHOD_STREAM[name] << 24)
+        stream = Stream(Purpose.SAMPLES, name, (gid,))
         run: GroupRun = run_group(group, block, precision, seed, stream, deadline)
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()

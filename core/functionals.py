@@ -21,6 +21,7 @@ from core.estimators.mixture import TiltFamily
 from core.portfolio import Portfolio
 from core.sampling import Draw, TiltGrid, draw_block
 from core.severities import Severity
+from core.streams import Purpose, Stream
 
 BlockValues = Callable[[int, np.random.Generator], np.ndarray]
 
@@ -96,7 +97,8 @@ def conditional_is_sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequenc
     cond = Conditioning(portfolio)
     stop_loss = _check_means(portfolio, cond)
     family = capped_family(cond, float(max(anchors)))
-    thetas = [adapt(portfolio, float(x), seed, 4096 + i)[1]
+    thetas = [adapt(portfolio, float(x), seed,
+                    Stream(Purpose.MEASURE_ADAPT, "conditional_is", (i,)))[1]
               for i, x in enumerate(spread_out(anchors))]
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:

@@ -28,7 +28,8 @@ from core.portfolio import Portfolio
 from core.precision import Precision, run_group
 from core.recursion_measures import tail_bounds
 from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
-from core.sampling import PILOT, block_rng, block_size
+from core.sampling import block_size
+from core.streams import Purpose, Stream
 
 # Layer and the result records live in core.levels and core.results; named here for callers.
 __all__ = [
@@ -42,7 +43,6 @@ __all__ = [
 
 GRID = 64
 PILOT_SAMPLES = 8192
-_STREAM = 5 << 24
 
 
 def _invert(a: np.ndarray, curve: np.ndarray, p: float) -> float | None:
@@ -113,10 +113,10 @@ def _var_error(q: np.ndarray, a: np.ndarray) -> object:
 def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> list[float]:
     guesses = [guess_var(portfolio, float(level)) for level in q]
     a = np.geomspace(max(min(guesses) / 20.0, 1e-9), max(guesses) * 20.0, 160)
-    values = sampler("conditional" if name == "conditional_is" else name, portfolio, a,
-                     guesses, seed)
+    pilot = "conditional" if name == "conditional_is" else name
+    values = sampler(pilot, portfolio, a, guesses, seed)
     stats_ = ContributionStats.from_samples(
-        values(PILOT_SAMPLES, block_rng(seed, PILOT, _STREAM, 0)))
+        values(PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, pilot).rng(seed, 0)))
     curves = _Curves(a, stats_)
     out = []
     for level, guess in zip(q, guesses, strict=True):
@@ -243,7 +243,7 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     error_of = _var_error(q, a) if q.size else _layer_error(g, n_layers)
     run = run_group(group, block_size(portfolio), precision, seed,
-                    _STREAM + select.METHOD_STREAM[name], deadline, error_of=error_of)
+                    Stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
     return _Curves(a, run.stats), run
 
 

@@ -27,8 +27,9 @@ from core.errors import MethodError
 from core.estimators.base import Group, work_per_sample
 from core.estimators.mixture import TiltFamily
 from core.portfolio import Portfolio
-from core.sampling import PILOT, Draw, TiltGrid, block_rng, draw_block
+from core.sampling import Draw, TiltGrid, draw_block
 from core.severities import Capped
+from core.streams import Purpose, Stream
 
 # Moment-matching updates of theta from its start, each on its own pilot block.
 _CE_ROUNDS = 2
@@ -123,15 +124,15 @@ def capped_family(cond: Conditioning, x: float) -> TiltFamily:
     return TiltFamily(cond.portfolio, grids, lead=cond.heavy[int(np.argmax(cond.pick))])
 
 
-def adapt(portfolio: Portfolio, x: float, seed: int, group: int) -> tuple[TiltFamily, float]:
+def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream) -> tuple[TiltFamily, float]:
     """Moment matching (the cross-entropy update of a natural exponential family) from the
-    start E_theta[S_-] = x; returns the family and theta."""
+    start E_theta[S_-] = x, round r on block r of `stream`; returns the family and theta."""
     cond = Conditioning(portfolio)
     family = capped_family(cond, x)
     theta = family.theta_for(x)
     xs = np.array([x])
     for r in range(_CE_ROUNDS):
-        rng = block_rng(seed, PILOT, group, r)
+        rng = stream.rng(seed, r)
         j = cond.choose(_CE_SAMPLES, rng)
         draw = family.draw([theta], _CE_SAMPLES, rng, j, defensive=DEFENSIVE)
         v = cond.values(draw, j, xs)[:, 0]
@@ -151,7 +152,8 @@ def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Gro
     cond = Conditioning(portfolio)
     groups = []
     for i, x in enumerate(np.asarray(thresholds, dtype=float)):
-        family, theta = adapt(portfolio, float(x), seed, i)
+        stream = Stream(Purpose.ADAPT, "conditional_is", (i,))
+        family, theta = adapt(portfolio, float(x), seed, stream)
         groups.append(_is_group(cond, family, theta, i, float(x)))
     return groups
 

@@ -13,12 +13,9 @@ from core.errors import LimitError, MethodError, TailgaugeError
 from core.estimators import conditional, crude, tilted
 from core.estimators.base import Group
 from core.portfolio import Portfolio
-from core.sampling import PILOT, block_rng
+from core.streams import Purpose, Stream
 
 PILOT_SAMPLES = 4096
-# Pilot streams of different candidates must not share random numbers with each other.
-_PILOT_GROUP_BASE = {"crude": 1 << 20, "conditional": 2 << 20, "tilted": 3 << 20}
-METHOD_STREAM = {"crude": 0, "conditional": 1, "conditional_is": 2, "tilted": 3}
 
 
 def candidates(portfolio: Portfolio) -> list[str]:
@@ -56,7 +53,8 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
     reliable = np.zeros(x.size, dtype=bool)
     cost = 0.0
     for g, group in enumerate(groups):
-        rng = block_rng(seed, PILOT, _PILOT_GROUP_BASE.get(name, 4 << 20) + g, 0)
+        # Each candidate pilots on streams of its own (core.streams keys them by name).
+        rng = Stream(Purpose.PILOT, name, (g,)).rng(seed, 0)
         stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
         mean = np.asarray(stats.mean(), dtype=float)
         se = np.asarray(stats.std_error(), dtype=float)

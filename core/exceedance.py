@@ -11,7 +11,7 @@ from scipy.stats import beta
 
 from core.diagnostics import ContributionStats
 from core.errors import ParameterError
-from core.estimators import select
+from core.estimators import registry, select
 from core.estimators.base import Group
 from core.portfolio import Portfolio
 from core.precision import GroupRun, Precision, run_group
@@ -19,7 +19,8 @@ from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.sampling import block_size
 from core.streams import Purpose, Stream
 
-METHODS = ("auto", "crude", "tilted", "conditional", "conditional_is", "recursion")
+# What a request may ask for: auto and every registered estimator (core.estimators.registry).
+METHODS = registry.methods()
 Z95 = 1.959963984540054
 LARGE_SHARE = 0.1
 
@@ -64,7 +65,7 @@ def _estimate(
         )
     se = float(np.asarray(stats.std_error())[col])
     low, high = max(0.0, p - Z95 * se), min(1.0, p + Z95 * se)
-    if method == "crude":
+    if registry.get(method).indicator:
         # A count of hits: the exact (Clopper-Pearson) interval, honest even for few hits.
         low = float(beta.ppf(0.025, hits, samples - hits + 1))
         high = float(beta.ppf(0.975, hits + 1, samples - hits)) if hits < samples else 1.0
@@ -86,7 +87,7 @@ def _run(
         if only is not None and not only.intersection(group.indices):
             continue
         # Each method has its own streams so a fallback never reuses the first one's draws.
-        stream = Stream(Purpose.SAMPLES, name, (gid,))
+        stream = Stream(Purpose.SAMPLES, registry.get(name).stream, (gid,))
         run: GroupRun = run_group(group, block, precision, seed, stream, deadline)
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
@@ -110,48 +111,6 @@ def _warnings(estimates: list[ExceedanceEstimate]) -> list[str]:
     return notes
 
 
-RECURSION_CELLS = 8192
-RECURSION_MAX_CELLS = 131_072
-
-
-def _recursion(
-    portfolio: Portfolio, x: np.ndarray, precision: Precision, seed: int, start: float
-) -> ExceedanceResult:
-    """Deterministic bounds (core.recursion): the grid doubles until the bounds' relative
-    width meets precision.relative_error (or the cell limit), else one default grid."""
-    from core.recursion import exceedance_bounds
-
-    target = precision.relative_error
-    cells = RECURSION_CELLS
-    while True:
-        bounds = exceedance_bounds(portfolio, x.tolist(), cells=cells,
-                                   max_cells=RECURSION_MAX_CELLS)
-        width = max((hi - lo) / 2 / pt if pt > 0 else 0.0 for lo, hi, pt in bounds)
-        if target is None or width <= target or 2 * cells > RECURSION_MAX_CELLS:
-            break
-        cells *= 2
-    stopped = "relative_error" if target is not None and width <= target else "samples"
-    estimates = []
-    for xi, (lo, hi, pt) in zip(x, bounds, strict=True):
-        half = (hi - lo) / 2
-        diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                           batch_ratio=None, reliable=True,
-                           reason=f"deterministic bounds on a grid of {cells} cells")
-        estimates.append(ExceedanceEstimate(
-            threshold=float(xi), value=pt, std_error=None,
-            relative_error=half / pt if pt > 0 else None, ci_low=lo, ci_high=hi, samples=0,
-            hits=0, diagnostics=diag, method="recursion"))
-    warnings = []
-    if target is not None and width > target:
-        warnings.append(f"recursion bounds are {width:.3g} wide (relative half-width) at the "
-                        f"cell limit {RECURSION_MAX_CELLS}, above the target {target:g}")
-    return ExceedanceResult(
-        method="recursion", method_reason="deterministic lower and upper bounds requested",
-        seed=seed, elapsed_s=time.monotonic() - start, stopped_by=stopped,
-        mean=portfolio.mean, std_dev=portfolio.std_dev, estimates=estimates,
-        warnings=warnings)
-
-
 def exceedance(
     portfolio: Portfolio, thresholds: Sequence[float], *, method: str = "auto",
     precision: Precision | None = None, seed: int | None = None,
@@ -161,17 +120,16 @@ def exceedance(
     x = check_thresholds(thresholds)
     seed = check_seed(seed)
     precision = precision or Precision()
-    if method not in METHODS:
-        raise ParameterError("method", f"must be one of {', '.join(METHODS)}; got {method!r}")
-    if method == "recursion":
-        return _recursion(portfolio, x, precision, seed, start)
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    if method == "auto":
+    if method == registry.AUTO:
         trials, reason = select.choose(portfolio, x, seed)
     else:
-        groups = select.plan(method, portfolio, x, seed)
+        chosen = registry.get(method)
+        if chosen.deterministic:
+            return chosen.exceedance_bounds(portfolio, x, precision, seed, start)
+        groups = chosen.plan(portfolio, x, seed)
         trials, reason = [select.Trial(method, groups, 0.0, np.ones(x.size, bool),
                                        np.zeros(x.size))], f"{method} requested"
+    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     best = trials[0]
     found, stops = _run(best.groups, x, best.name, portfolio, precision, seed, deadline)
     if method == "auto":

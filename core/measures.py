@@ -19,14 +19,12 @@ from functools import cached_property
 import numpy as np
 
 from core.diagnostics import ContributionStats
-from core.estimators import select
+from core.estimators import registry, select
 from core.estimators.base import Group, work_per_sample
 from core.exceedance import Z95, check_seed
-from core.functionals import sampler
 from core.levels import Layer, check_levels, guess_var
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
-from core.recursion_measures import tail_bounds
 from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
 from core.sampling import block_size
 from core.streams import Purpose, Stream
@@ -113,10 +111,10 @@ def _var_error(q: np.ndarray, a: np.ndarray) -> object:
 def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> list[float]:
     guesses = [guess_var(portfolio, float(level)) for level in q]
     a = np.geomspace(max(min(guesses) / 20.0, 1e-9), max(guesses) * 20.0, 160)
-    pilot = "conditional" if name == "conditional_is" else name
-    values = sampler(pilot, portfolio, a, guesses, seed)
+    pilot = registry.get(registry.get(name).grid_pilot or name)
+    values = pilot.contributions(portfolio, a, guesses, seed)
     stats_ = ContributionStats.from_samples(
-        values(PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, pilot).rng(seed, 0)))
+        values(PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, pilot.stream).rng(seed, 0)))
     curves = _Curves(a, stats_)
     out = []
     for level, guess in zip(q, guesses, strict=True):
@@ -138,8 +136,9 @@ def tail_estimates(
     seed = check_seed(seed)
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
-    if method == "recursion":
-        return tail_bounds(portfolio, levels=list(q), layers=layers, losses=losses, seed=seed)
+    if method != registry.AUTO and registry.get(method).deterministic:
+        return registry.get(method).tail_bounds(portfolio, levels=list(q), layers=layers,
+                                                losses=losses, seed=seed)
     names, reason = _choose(portfolio, q, _extra_points(layers, losses), method, seed)
     first: TailResult | None = None
     for name in names:
@@ -207,7 +206,7 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
 def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str,
             seed: int) -> tuple[list[str], str]:
     """Candidate names, best first, and the reason in words."""
-    if method != "auto":
+    if method != registry.AUTO:
         return [method], f"{method} requested"
     points = [guess_var(portfolio, float(level)) for level in q] + [x for x in extra if x > 0]
     # The pilot compares estimators at the extreme points only: it costs a pilot per point.
@@ -222,8 +221,8 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     n_layers = len(layers)
     extra = [ly.attachment for ly in layers] + [
         ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
-    values = sampler(name, portfolio, np.concatenate([a, np.asarray(extra, dtype=float)]),
-                     anchors, seed)
+    values = registry.get(name).contributions(
+        portfolio, np.concatenate([a, np.asarray(extra, dtype=float)]), anchors, seed)
     g, e = a.size, len(extra)
 
     def block(m: int, rng: np.random.Generator) -> np.ndarray:
@@ -243,7 +242,8 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     error_of = _var_error(q, a) if q.size else _layer_error(g, n_layers)
     run = run_group(group, block_size(portfolio), precision, seed,
-                    Stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
+                    Stream(Purpose.MEASURE_SAMPLES, registry.get(name).stream), deadline,
+                    error_of=error_of)
     return _Curves(a, run.stats), run
 
 

@@ -68,6 +68,9 @@ __all__ = [
 _Floats = NDArray[np.float64]
 
 DEFAULT_CELLS = 8192
+# method=recursion starts at RECURSION_CELLS and doubles towards its precision target.
+RECURSION_CELLS = 8192
+RECURSION_MAX_CELLS = 131_072
 _LEAF = 64  # the Panjer recursion solves ranges this short as one triangular system
 # The recursion starts from P(S = 0) and zeroes values below TINY (1e-150) on the way, so its
 # start must stay well above TINY: a count with log P(S = 0) below this is split into equal

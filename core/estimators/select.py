@@ -10,7 +10,7 @@ import numpy as np
 
 from core.diagnostics import ContributionStats
 from core.errors import LimitError, MethodError, TailgaugeError
-from core.estimators import conditional, crude, tilted
+from core.estimators import registry
 from core.estimators.base import Group
 from core.portfolio import Portfolio
 from core.streams import Purpose, Stream
@@ -19,23 +19,12 @@ PILOT_SAMPLES = 4096
 
 
 def candidates(portfolio: Portfolio) -> list[str]:
-    """Candidate estimators for the tails in the model."""
-    if portfolio.is_light:
-        return ["tilted", "crude"]
-    return ["conditional", "conditional_is", "crude"]
-
+    """Candidate estimators for the tails in the model (each estimator says when it is one)."""
+    return registry.candidates(portfolio)
 
 
 def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> list[Group]:
-    if name == "crude":
-        return crude.plan(portfolio, x)
-    if name == "conditional":
-        return conditional.plan_plain(portfolio, x)
-    if name == "conditional_is":
-        return conditional.plan_is(portfolio, x, seed)
-    if name == "tilted":
-        return tilted.plan(portfolio, x)
-    raise ValueError(name)
+    return registry.get(name).plan(portfolio, x, seed)
 
 
 @dataclass
@@ -54,7 +43,7 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
     cost = 0.0
     for g, group in enumerate(groups):
         # Each candidate pilots on streams of its own (core.streams keys them by name).
-        rng = Stream(Purpose.PILOT, name, (g,)).rng(seed, 0)
+        rng = Stream(Purpose.PILOT, registry.get(name).stream, (g,)).rng(seed, 0)
         stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
         mean = np.asarray(stats.mean(), dtype=float)
         se = np.asarray(stats.std_error(), dtype=float)

@@ -10,14 +10,18 @@ drawn from a stepwise tilt (core.sampling.StepwiseTilt) whose likelihood ratio i
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 
 import numpy as np
 from scipy.optimize import brentq
 
 from core.errors import LimitError, MethodError, ParameterError
-from core.estimators.base import Group, work_per_sample
+from core.estimators.base import BlockFn, Group, work_per_sample
+from core.estimators.estimator import Estimator, RuinRegime
+from core.estimators.mixture import TiltFamily
+from core.functionals import plain_values, spread_out
 from core.portfolio import Portfolio
-from core.sampling import LineProposal, StepwiseTilt, draw_block
+from core.sampling import LineProposal, StepwiseTilt, TiltGrid, draw_block
 from core.severities import Severity
 
 
@@ -157,3 +161,43 @@ def plan(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
         work = work_per_sample(claims, 0)
         groups.append(Group((i,), values, work, f"exponential tilt theta = {theta:.6g}"))
     return groups
+
+
+def sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequence[float]) -> BlockFn:
+    """Risk-measure contributions from a mixture of exponential tilts, one at each anchor's
+    saddlepoint."""
+    check_light(portfolio)
+    thetas = sorted({saddlepoint(portfolio, float(x)) for x in spread_out(anchors)})
+    top = max(thetas)
+    grids: dict[int, TiltGrid | None] = {}
+    for k, line in enumerate(portfolio.lines):
+        sev = line.paid_severity
+        grids[k] = None if has_closed_tilt(sev) else TiltGrid.for_tilt(sev, top)
+    family = TiltFamily(portfolio, grids)
+    nonzero = [t for t in thetas if t > 0.0] or [0.0]
+    # Thresholds below the mean need no tilt: the model itself is then a component.
+    share = 1.0 / len(thetas) if 0.0 in thetas and len(thetas) > 1 else 0.0
+    return lambda m, rng: plain_values(family.draw(nonzero, m, rng, defensive=share), a)
+
+
+class Tilted(Estimator):
+    name = "tilted"
+    listing = 20
+    ruin_infinite = RuinRegime.SIEGMUND
+    ruin_finite = RuinRegime.TILTED_PATHS
+
+    def check(self, portfolio: Portfolio) -> None:
+        check_light(portfolio)
+
+    def candidate_rank(self, portfolio: Portfolio) -> int | None:
+        return 0 if portfolio.is_light else None
+
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+        return plan(portfolio, thresholds)
+
+    def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
+                      seed: int) -> BlockFn:
+        return sampler(portfolio, points, anchors)
+
+
+ESTIMATOR = Tilted()

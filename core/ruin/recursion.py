@@ -13,7 +13,7 @@ lower bound) and up (an upper bound), so:
   below it whose lower bound is still > target (surely too small), so the true capital lies in
   (ci_low, ci_high]; the point is where the point estimates cross the target.
 
-The grids start at core.exceedance.RECURSION_CELLS cells and double while the bounds are wider
+The grids start at core.recursion.RECURSION_CELLS cells and double while the bounds are wider
 than precision.relative_error (relative half-width), up to RECURSION_MAX_CELLS, and while the
 next grid is expected to finish within the time limit. There is no sampling: samples = 0,
 std_error None, and the same request gives the same figures.
@@ -30,10 +30,9 @@ import numpy as np
 
 from core.discretise import Grid, Lattice
 from core.errors import LimitError, MethodError
-from core.exceedance import RECURSION_CELLS, RECURSION_MAX_CELLS
 from core.portfolio import Portfolio
 from core.precision import Precision
-from core.recursion import aggregate, exceedance_bounds
+from core.recursion import RECURSION_CELLS, RECURSION_MAX_CELLS, aggregate, exceedance_bounds
 from core.results import CapitalForTarget, Diagnostics, RuinEstimate, RuinResult
 from core.ruin.approximations import approximation
 from core.ruin.capital import Bracket, crossing

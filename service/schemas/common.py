@@ -7,9 +7,11 @@ choosing; thresholds, retentions, limits and severity scales must all use the sa
 
 from __future__ import annotations
 
-from typing import Annotated, Literal
+from typing import TYPE_CHECKING, Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+import core
 
 # JavaScript clients hold integers exactly only up to 2**53 - 1; seeds stay inside that range.
 MAX_JSON_SAFE_INT = 2**53 - 1
@@ -209,7 +211,12 @@ class PortfolioSpec(RequestModel):
 
 # --- method and precision -------------------------------------------------------------------
 
-Method = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion"]
+# The methods are the core's estimator registry (core.estimators.registry): a new estimator
+# appears in the schema without an edit here. Type checkers see a plain str.
+if TYPE_CHECKING:
+    Method = str
+else:
+    Method = Literal[core.METHODS]
 
 METHOD_DESCRIPTION = (
     "Estimator: auto (chosen from the model's tails and a short pilot), crude (plain Monte "

@@ -16,7 +16,8 @@ import numpy as np
 import pytest
 
 from core.counts import Binomial, ClaimCount, NegativeBinomial, Poisson
-from core.estimators.conditional import DEFENSIVE, Conditioning, capped_family
+from core.estimators.conditional import Conditioning
+from core.estimators.conditional_is import DEFENSIVE, capped_family
 from core.estimators.mixture import TiltFamily
 from core.portfolio import Line, Portfolio
 from core.sampling import LineProposal, StepwiseTilt, TiltGrid, draw_block, draw_claims

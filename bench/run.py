@@ -139,7 +139,7 @@ def memory(samples: int) -> list[list]:
     code = (
         "import resource, time; from core import *; "
         "p = Portfolio(lines=[Line(count=Fixed(n=100), severity=Lognormal(mu=0.0, sigma=1.0))]); "
-        f"t = time.perf_counter(); exceedance(p, [300.0], method='conditional', "
+        f"t = time.perf_counter(); estimate_exceedance(p, [300.0], method='conditional', "
         f"precision=Precision(samples={samples}), seed=1); "
         "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, "
         "time.perf_counter() - t)"

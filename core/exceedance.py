@@ -2,14 +2,13 @@
 
 from __future__ import annotations
 
-import math
 import time
 from collections.abc import Sequence
 
 import numpy as np
-from scipy.stats import beta
 
-from core.diagnostics import ContributionStats
+from core import intervals
+from core.diagnostics import MAX_SHARE, ContributionStats
 from core.errors import ParameterError
 from core.estimators import registry, select
 from core.estimators.base import Group
@@ -18,11 +17,10 @@ from core.precision import GroupRun, Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.sampling import block_size
 from core.streams import Purpose, Stream
+from core.validate import finite_numbers
 
 # What a request may ask for: auto and every registered estimator (core.estimators.registry).
 METHODS = registry.methods()
-Z95 = 1.959963984540054
-LARGE_SHARE = 0.1
 
 
 def draw_seed() -> int:
@@ -33,13 +31,7 @@ def draw_seed() -> int:
 
 
 def check_thresholds(thresholds: Sequence[float]) -> np.ndarray:
-    x = np.asarray(thresholds, dtype=float)
-    if x.ndim != 1 or x.size == 0:
-        raise ParameterError("thresholds", "must be a non-empty list of numbers")
-    bad = np.flatnonzero(~np.isfinite(x))
-    if bad.size:
-        raise ParameterError(f"thresholds.{bad[0]}", "must be a finite number")
-    return x
+    return finite_numbers("thresholds", thresholds)
 
 
 def check_seed(seed: int | None) -> int:
@@ -57,18 +49,17 @@ def _estimate(
     p = float(np.asarray(stats.mean())[col])
     hits = int(np.asarray(stats.hits)[col])
     if hits == 0 or p <= 0.0:
-        # Nothing observed: a one-sided 95% bound (the rule of three for a crude count).
+        # Nothing observed: the one-sided 95% bound (core.intervals).
         return ExceedanceEstimate(
             threshold=x, value=0.0, std_error=None, relative_error=None, ci_low=0.0,
-            ci_high=min(1.0, -math.log(0.05) / samples), samples=samples, hits=0,
+            ci_high=min(1.0, intervals.no_hit_upper(samples)), samples=samples, hits=0,
             diagnostics=diag, method=method,
         )
     se = float(np.asarray(stats.std_error())[col])
-    low, high = max(0.0, p - Z95 * se), min(1.0, p + Z95 * se)
     if registry.get(method).indicator:
-        # A count of hits: the exact (Clopper-Pearson) interval, honest even for few hits.
-        low = float(beta.ppf(0.025, hits, samples - hits + 1))
-        high = float(beta.ppf(0.975, hits + 1, samples - hits)) if hits < samples else 1.0
+        low, high = intervals.clopper_pearson(hits, samples)  # a count of hits
+    else:
+        low, high = intervals.normal(p, se, upper=1.0)
     return ExceedanceEstimate(
         threshold=x, value=p, std_error=se, relative_error=se / p,
         ci_low=min(low, p), ci_high=max(high, p), samples=samples,
@@ -105,7 +96,7 @@ def _warnings(estimates: list[ExceedanceEstimate]) -> list[str]:
                          "one-sided 95% upper bound")
         elif not d.reliable:
             notes.append(f"threshold {e.threshold:g}: estimate flagged unreliable: {d.reason}")
-        if d.largest_share is not None and d.largest_share > LARGE_SHARE:
+        if d.largest_share is not None and d.largest_share > MAX_SHARE:
             notes.append(f"threshold {e.threshold:g}: one sample carries "
                          f"{100 * d.largest_share:.0f}% of the estimate")
     return notes

@@ -12,6 +12,7 @@ from scipy import stats
 
 from core.errors import ParameterError
 from core.portfolio import Portfolio
+from core.validate import finite_numbers
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -29,9 +30,7 @@ class Layer:
 
 
 def check_levels(levels: Sequence[float]) -> np.ndarray:
-    q = np.asarray(levels, dtype=float)
-    if q.ndim != 1 or q.size == 0:
-        raise ParameterError("levels", "must be a non-empty list of numbers")
+    q = finite_numbers("levels", levels)
     for i, v in enumerate(q):
         if not (0.0 < v < 1.0):
             raise ParameterError(f"levels.{i}", f"must be strictly between 0 and 1, got {v}")

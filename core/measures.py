@@ -21,7 +21,8 @@ import numpy as np
 from core.diagnostics import ContributionStats
 from core.estimators import registry, select
 from core.estimators.base import Group, work_per_sample
-from core.exceedance import Z95, check_seed
+from core.exceedance import check_seed
+from core.intervals import Z95, no_hit_upper, normal
 from core.levels import Layer, check_levels, guess_var
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
@@ -284,13 +285,12 @@ def _measure(curves: _Curves, q: float, portfolio: Portfolio) -> MeasureEstimate
 
 
 def _interval(value: float, se: float, n: int, cap: float = 1.0) -> Interval:
-    """value +- 1.96 se; with nothing observed, a one-sided 95% bound of -ln(0.05)/n times
+    """value +- 1.96 se; with nothing observed, the one-sided 95% bound of core.intervals times
     the largest possible value (1 for a probability, the limit for a layer), never 0 +- 0."""
     if value <= 0.0 and se <= 0.0:
-        return Interval(value=0.0, ci_low=0.0, ci_high=cap * -math.log(0.05) / n,
-                        std_error=None)
-    return Interval(value=value, ci_low=max(0.0, value - Z95 * se),
-                    ci_high=min(value + Z95 * se, cap), std_error=se)
+        return Interval(value=0.0, ci_low=0.0, ci_high=no_hit_upper(n, cap), std_error=None)
+    low, high = normal(value, se, upper=cap)
+    return Interval(value=value, ci_low=low, ci_high=high, std_error=se)
 
 
 def _layers(curves: _Curves, a: np.ndarray, layers: Sequence[Layer]) -> list[LayerEstimate]:

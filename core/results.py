@@ -24,6 +24,17 @@ class Diagnostics:
     reliable: bool
     reason: str
 
+    @classmethod
+    def exact(cls, reason: str) -> Diagnostics:
+        """The record of a figure that was not sampled (a closed form or rigorous bounds)."""
+        return cls(pareto_k=None, effective_samples=0.0, largest_share=None, batch_ratio=None,
+                   reliable=True, reason=reason)
+
+    @classmethod
+    def on_grid(cls, cells: int) -> Diagnostics:
+        """Deterministic bounds from the recursion on a grid of `cells` cells."""
+        return cls.exact(f"deterministic bounds on a grid of {cells} cells")
+
 
 @dataclass(frozen=True, kw_only=True)
 class Estimate:

@@ -189,11 +189,6 @@ def samples_behind(result: ExceedanceResult) -> int:
 
 # --- risk measures and layers ---------------------------------------------------------------
 
-# With no sample beyond a point, the same one-sided 95% bound as /v1/exceedance: P <= -ln(0.05)/n
-# (the rule of three for a count of zero).
-NO_HIT_BOUND = -math.log(0.05)
-
-
 def _nothing_observed(p: Interval, samples: int) -> bool:
     """A sampled probability of 0 with a zero-width interval: no sample reached the point.
     (The deterministic method reports samples = 0; its 0 is a rigorous bound.)"""
@@ -203,9 +198,9 @@ def _nothing_observed(p: Interval, samples: int) -> bool:
 
 def _probability(p: Interval, samples: int) -> tuple[float | None, float | None, float | None]:
     """(value, ci_low, ci_high) of a probability, clipped to [0, 1]; nothing observed gives
-    0 with a one-sided upper bound rather than "0 +- 0"."""
+    0 with the core's one-sided upper bound (core.intervals) rather than "0 +- 0"."""
     if _nothing_observed(p, samples):
-        return 0.0, 0.0, min(1.0, NO_HIT_BOUND / samples)
+        return 0.0, 0.0, min(1.0, p.ci_high)
     return (
         finite_or_none(min(p.value, 1.0)),
         finite_or_none(max(p.ci_low, 0.0)),
@@ -319,8 +314,7 @@ def _layer(i: int, e: LayerEstimate, samples: int, warnings: list[str]) -> Layer
         # Nothing reached the layer: its loss is at most limit * P(S > a) <= limit * bound.
         warnings.append(f"{_layer_name(i, e)}: no sample reached the attachment; the "
                         "figures are 0 with one-sided upper bounds")
-        loss_low = 0.0
-        loss_high = None if e.limit is None else finite_or_none(e.limit * (attach[2] or 1.0))
+        loss_low = 0.0  # the core's loss bound is already limit * the no-hit bound
     elif not e.diagnostics.reliable:
         warnings.append(f"{_layer_name(i, e)}: flagged unreliable: {e.diagnostics.reason}")
     return LayerOut(

@@ -35,9 +35,7 @@ def exceedance_result(
     estimates = []
     for xi, (lo, hi, pt) in zip(x, bounds, strict=True):
         half = (hi - lo) / 2
-        diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                           batch_ratio=None, reliable=True,
-                           reason=f"deterministic bounds on a grid of {cells} cells")
+        diag = Diagnostics.on_grid(cells)
         estimates.append(ExceedanceEstimate(
             threshold=float(xi), value=pt, std_error=None,
             relative_error=half / pt if pt > 0 else None, ci_low=lo, ci_high=hi, samples=0,

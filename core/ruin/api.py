@@ -43,6 +43,7 @@ from core.ruin.recursion import ruin_bounds
 from core.ruin.runner import Batch, Context
 from core.ruin.siegmund import PathRegime
 from core.severities import Capped
+from core.validate import finite_numbers
 
 # auto and every estimator that names a ruin regime (core.estimators.registry).
 RUIN_METHODS = registry.ruin_methods()
@@ -51,16 +52,7 @@ Regime = PathRegime | GeometricRegime | JumpRegime
 
 
 def _capitals(values: Sequence[float]) -> np.ndarray:
-    try:
-        u = np.asarray(values, dtype=float)
-    except (TypeError, ValueError):
-        raise ParameterError("capital", "must be a non-empty list of numbers") from None
-    if u.ndim != 1 or u.size == 0:
-        raise ParameterError("capital", "must be a non-empty list of numbers")
-    for i, v in enumerate(u):
-        if not (math.isfinite(v) and v >= 0):
-            raise ParameterError(f"capital.{i}", f"must be a finite number >= 0, got {v!r}")
-    return u
+    return finite_numbers("capital", values, minimum=0.0)
 
 
 def _horizon(horizon: float | None) -> float:
@@ -141,8 +133,7 @@ def _certain(process: SurplusProcess, u: np.ndarray, target: float | None, seed:
     why = (f"the net profit condition fails (premium rate {process.premium:g} <= claim rate x "
            f"mean claim {process.claim_rate * process.mean_claim:g}): ruin is certain for "
            "every capital")
-    diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                       batch_ratio=None, reliable=True, reason=f"exact: {why}")
+    diag = Diagnostics.exact(f"exact: {why}")
     estimates = [
         RuinEstimate(capital=float(v), value=1.0, std_error=0.0, relative_error=0.0, ci_low=1.0,
                      ci_high=1.0, samples=0, hits=0, diagnostics=diag, method="exact",

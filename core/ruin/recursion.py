@@ -61,12 +61,6 @@ def check_horizon(horizon: float) -> None:
         )
 
 
-def _diag(cells: int) -> Diagnostics:
-    return Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                       batch_ratio=None, reliable=True,
-                       reason=f"deterministic bounds on a grid of {cells} cells")
-
-
 def _refine(
     compute: Callable[[int], T], width_of: Callable[[T], float], target: float | None,
     deadline: float | None,
@@ -115,7 +109,7 @@ def _estimates(portfolio: Portfolio, capitals: np.ndarray, ctx: Context, precisi
         estimates.append(RuinEstimate(
             capital=float(u), value=pt, std_error=None,
             relative_error=half / pt if pt > 0 else None, ci_low=lo, ci_high=hi, samples=0,
-            hits=0, diagnostics=_diag(cells), method="recursion",
+            hits=0, diagnostics=Diagnostics.on_grid(cells), method="recursion",
             approximation=approximation(ctx, float(u))))
     return estimates, stopped, _width_notes("the ruin probabilities' bounds", stopped, width,
                                             precision.relative_error, cells)

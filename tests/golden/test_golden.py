@@ -94,6 +94,11 @@ CASES: dict[str, Callable[[], Any]] = {
     "exceedance_auto_limited_relative_error": lambda: exceedance(
         limited(), [60.0], precision=Precision(relative_error=0.05, max_samples=40_000),
         seed=107),
+    "exceedance_no_hits": lambda: exceedance(
+        light(), [150.0], method="crude", precision=samples(2_000), seed=109),
+    "layers_no_hits": lambda: tail_estimates(
+        light(), layers=[Layer(attachment=150.0, limit=10.0)], losses=[160.0], method="crude",
+        precision=samples(2_000), seed=206),
     "exceedance_recursion": lambda: exceedance(
         light(), [50.0, 70.0], method="recursion", seed=108),
     "risk_measures_auto_heavy": lambda: tail_estimates(

@@ -23,6 +23,7 @@ from core.estimators import registry, select
 from core.estimators.base import Group, work_per_sample
 from core.exceedance import check_seed
 from core.intervals import Z95, no_hit_upper, normal
+from core.invariants import check_tail
 from core.levels import Layer, check_levels, guess_var
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
@@ -187,6 +188,8 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
     measures = [_measure(curves, float(level), portfolio) for level in q]
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
+    measures, layer_out, notes = check_tail(measures, layer_out)
+    warnings += notes
     if run.stopped_by == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     for m in measures:

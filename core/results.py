@@ -15,6 +15,8 @@ class Diagnostics:
     largest_share: the largest single contribution over the total.
     batch_ratio: spread of batch estimates over independent sub-streams divided by the
         spread the reported standard error predicts (about 1 when healthy).
+    exact: the figure is known in closed form (a certainty, or a term the model fixes): its
+        interval has zero width because there is no error, not because none was seen.
     """
 
     pareto_k: float | None
@@ -23,17 +25,19 @@ class Diagnostics:
     batch_ratio: float | None
     reliable: bool
     reason: str
+    exact: bool = False
 
     @classmethod
-    def exact(cls, reason: str) -> Diagnostics:
-        """The record of a figure that was not sampled (a closed form or rigorous bounds)."""
+    def deterministic(cls, reason: str, *, exact: bool = False) -> Diagnostics:
+        """The record of a figure that was not sampled: rigorous bounds, or (exact) a closed
+        form."""
         return cls(pareto_k=None, effective_samples=0.0, largest_share=None, batch_ratio=None,
-                   reliable=True, reason=reason)
+                   reliable=True, reason=reason, exact=exact)
 
     @classmethod
     def on_grid(cls, cells: int) -> Diagnostics:
         """Deterministic bounds from the recursion on a grid of `cells` cells."""
-        return cls.exact(f"deterministic bounds on a grid of {cells} cells")
+        return cls.deterministic(f"deterministic bounds on a grid of {cells} cells")
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -46,10 +46,10 @@ from core import (
     Precision,
     SurplusProcess,
     TailgaugeError,
-    exceedance,
-    ruin,
 )
+from core.exceedance import exceedance
 from core.measures import Layer, tail_estimates
+from core.ruin.api import ruin
 
 
 @dataclass

@@ -123,7 +123,8 @@ def overhead(base: str, samples: int, repeats: int) -> dict[str, Any]:
             "engine_in_server_s": statistics.median(engine), "ratio": http / direct}
 
 
-async def _load(base: str, body: dict[str, Any], concurrency: int, seconds: float) -> dict:
+async def _load(base: str, body: dict[str, Any], concurrency: int, seconds: float
+                ) -> dict[str, Any]:
     done = failed = 0
     stop = time.perf_counter() + seconds
 

@@ -221,6 +221,7 @@ class Fixed(ClaimCount):
         return s * self.n
 
     def _sample(self, size: int | tuple[int, ...], rng: np.random.Generator) -> NDArray[Any]:
+        del rng  # a fixed count draws nothing
         return np.full(size, self.n, dtype=np.int64)
 
     def tilted(self, s: float) -> ClaimCount:

@@ -81,7 +81,7 @@ def psis_tail_size(n: int) -> int:
     """
     if isinstance(n, bool) or not isinstance(n, int | np.integer) or n < 0:
         raise ParameterError("n", f"must be a non-negative integer, got {n!r}")
-    return int(math.ceil(min(0.2 * n, 3.0 * math.sqrt(n))))
+    return math.ceil(min(0.2 * n, 3.0 * math.sqrt(n)))
 
 
 def pareto_khat(tail_values: np.ndarray, threshold: float) -> float:

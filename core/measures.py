@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from functools import cached_property
 
 import numpy as np
@@ -26,7 +26,7 @@ from core.intervals import Z95, no_hit_upper, normal
 from core.invariants import check_tail
 from core.levels import Layer, check_levels, guess_var
 from core.portfolio import Portfolio
-from core.precision import Precision, run_group
+from core.precision import GroupRun, Precision, run_group
 from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
 from core.sampling import block_size
 from core.streams import Purpose, Stream
@@ -40,6 +40,9 @@ __all__ = [
     "TailResult",
     "tail_estimates",
 ]
+
+# The figure a relative-error target applies to, from the merged statistics.
+ErrorOf = Callable[[ContributionStats], float]
 
 GRID = 64
 PILOT_SAMPLES = 8192
@@ -96,7 +99,7 @@ def _grid(points: Sequence[float], spread: float) -> np.ndarray:
     return np.geomspace(lo, hi, GRID)
 
 
-def _var_error(q: np.ndarray, a: np.ndarray) -> object:
+def _var_error(q: np.ndarray, a: np.ndarray) -> ErrorOf:
     def error_of(stats_: ContributionStats) -> float:
         curves = _Curves(a, stats_)
         worst = 0.0
@@ -185,7 +188,7 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
         if attempt == 2:
             warnings.append(f"VaR interval at levels {missing} runs past the estimation grid; "
                             "increase samples")
-    measures = [_measure(curves, float(level), portfolio) for level in q]
+    measures = [_measure(curves, float(level)) for level in q]
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
     measures, layer_out, notes = check_tail(measures, layer_out)
@@ -219,7 +222,9 @@ def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str
     return [t.name for t in trials], reason
 
 
-def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start):
+def _run(name: str, portfolio: Portfolio, a: np.ndarray, q: np.ndarray, layers: Sequence[Layer],
+         losses: Sequence[float], anchors: Sequence[float], precision: Precision, seed: int,
+         start: float) -> tuple[_Curves, GroupRun]:
     """Main run: the grid's exceedance and stop-loss columns, then per layer its loss,
     attachment and exhaustion columns, then P(S > loss) per loss."""
     n_layers = len(layers)
@@ -240,18 +245,19 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
         if len(losses):
             cols.append(exceed[:, g + 2 * n_layers:])
         # Differences of monotone per-sample values are >= 0 up to rounding.
-        return np.maximum(np.hstack(cols), 0.0)
+        out: np.ndarray = np.maximum(np.hstack(cols), 0.0)
+        return out
 
     group = Group((0,), block, work_per_sample(portfolio.expected_claims, 2 * (g + e)), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    error_of = _var_error(q, a) if q.size else _layer_error(g, n_layers)
+    error_of = _var_error(q, a) if q.size else _layer_error(g)
     run = run_group(group, block_size(portfolio), precision, seed,
                     Stream(Purpose.MEASURE_SAMPLES, registry.get(name).stream), deadline,
                     error_of=error_of)
     return _Curves(a, run.stats), run
 
 
-def _layer_error(g: int, n_layers: int):
+def _layer_error(g: int) -> ErrorOf:
     def error_of(stats_: ContributionStats) -> float:
         mean = np.asarray(stats_.mean(), dtype=float)[2 * g:]
         se = np.asarray(stats_.std_error(), dtype=float)[2 * g:]
@@ -262,7 +268,7 @@ def _layer_error(g: int, n_layers: int):
     return error_of
 
 
-def _measure(curves: _Curves, q: float, portfolio: Portfolio) -> MeasureEstimate:
+def _measure(curves: _Curves, q: float) -> MeasureEstimate:
     v, lo, hi = curves.var(q)
     a = curves.a
     g = int(np.clip(np.searchsorted(a, v if v is not None else a[0]), 0, a.size - 1))

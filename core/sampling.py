@@ -31,7 +31,7 @@ def block_size(portfolio: Portfolio) -> int:
     """Samples per block: as many as keep about 1M claims in memory, a power of two."""
     per_sample = max(1.0, portfolio.expected_claims)
     size = _CLAIMS_PER_BLOCK / per_sample
-    size = 2 ** int(math.floor(math.log2(max(size, 1.0))))
+    size = 2 ** math.floor(math.log2(max(size, 1.0)))
     return int(min(_MAX_BLOCK, max(_MIN_BLOCK, size)))
 
 

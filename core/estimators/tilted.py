@@ -44,7 +44,10 @@ def theta_bound(portfolio: Portfolio) -> float:
             # kappa_Y(theta) must stay below the count's bound.
             cap = float(law.mgf_bound)
             hi = b if math.isfinite(b) else 1e6
-            f = lambda t, s=sev, c=cap: float(s.cumulant(t)) - c  # noqa: E731
+
+            def f(t: float, s: Severity = sev, c: float = cap) -> float:
+                return float(s.cumulant(t)) - c
+
             if f(hi * (1 - 1e-12)) > 0:
                 b = brentq(f, 0.0, hi * (1 - 1e-12), xtol=1e-14)
         bound = min(bound, b)
@@ -110,8 +113,10 @@ def saddlepoint(portfolio: Portfolio, x: float) -> float:
                         xtol=1e-14 * hi, rtol=1e-12))
 
 
-def _proposals(portfolio: Portfolio, theta: float):
-    props, steps = [], []
+def _proposals(portfolio: Portfolio, theta: float
+               ) -> tuple[list[LineProposal], list[StepwiseTilt | None]]:
+    props: list[LineProposal] = []
+    steps: list[StepwiseTilt | None] = []
     for line in portfolio.lines:
         sev = line.paid_severity
         step = None
@@ -144,7 +149,9 @@ def plan(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
         theta = saddlepoint(portfolio, float(x))
         props, steps = _proposals(portfolio, theta)
 
-        def values(m: int, rng: np.random.Generator, x=x, props=props, steps=steps) -> np.ndarray:
+        def values(m: int, rng: np.random.Generator, x: float = float(x),
+                   props: list[LineProposal] = props,
+                   steps: list[StepwiseTilt | None] = steps) -> np.ndarray:
             draw = draw_block(portfolio, m, rng, proposals=props, stepwise=steps)
             hit = draw.total > x
             out = np.zeros(m)

@@ -93,7 +93,7 @@ def _tilted_paths(ctx: Context, method: str) -> Regime:
     return PathRegime(ctx, tilted=True)
 
 
-def _big_jump(ctx: Context, method: str) -> Regime:
+def _big_jump(ctx: Context, method: str) -> Regime:  # noqa: ARG001 - the REGIMES signature
     if isinstance(ctx.process.net_severity, Capped):
         raise MethodError(
             "method",
@@ -108,7 +108,7 @@ REGIMES: dict[RuinRegime, Callable[[Context, str], Regime]] = {
     RuinRegime.SIEGMUND: _siegmund,
     RuinRegime.GEOMETRIC_SUM: GeometricRegime,
     RuinRegime.TILTED_PATHS: _tilted_paths,
-    RuinRegime.CRUDE_PATHS: lambda ctx, method: PathRegime(ctx, tilted=False),
+    RuinRegime.CRUDE_PATHS: lambda ctx, _method: PathRegime(ctx, tilted=False),
     RuinRegime.BIG_JUMP: _big_jump,
 }
 

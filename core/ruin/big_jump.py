@@ -60,7 +60,7 @@ class JumpPlan:
     def block(self) -> int:
         """Paths per block: as many as keep about 1M claim slots (depends on the model only)."""
         width = self.mean_claims + 6.0 * math.sqrt(self.mean_claims) + 2.0
-        size = 2 ** int(math.floor(math.log2(max(_CELLS_PER_BLOCK / width, 1.0))))
+        size = 2 ** math.floor(math.log2(max(_CELLS_PER_BLOCK / width, 1.0)))
         return int(min(_MAX_BLOCK, max(_MIN_BLOCK, size)))
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import abc
 import functools
+import itertools
 import math
 from collections.abc import Callable
 from typing import Any, ClassVar, overload
@@ -343,7 +344,7 @@ class Severity(abc.ABC):
         """E[min(X, t)^k] = int x^k f(x) dx over (lo, t) + t^k sf(t), by quad on quantile edges."""
         edges = self._edges(t)
         total = 0.0
-        for a, b in zip(edges[:-1], edges[1:], strict=False):
+        for a, b in itertools.pairwise(edges):
             total += integrate.quad(self._power_density, a, b, args=(k,), limit=200)[0]
         return total + t**k * math.exp(float(self._logsf(np.array([t]))[0]))
 
@@ -358,7 +359,7 @@ class Severity(abc.ABC):
     def _numeric_moment(self, k: int) -> float:
         edges = self._edges(self.support_max)
         total = 0.0
-        for a, b in zip(edges[:-1], edges[1:], strict=False):
+        for a, b in itertools.pairwise(edges):
             total += integrate.quad(self._power_density, a, b, args=(k,), limit=200)[0]
         atom = self._atom()
         if atom is not None:
@@ -405,7 +406,7 @@ class Severity(abc.ABC):
         inner = grid[first + 1 : last].tolist()
         edges = [a, *inner, b]
         sums = np.zeros(3)
-        for lo, hi in zip(edges[:-1], edges[1:], strict=False):
+        for lo, hi in itertools.pairwise(edges):
             sums += integrate.quad_vec(integrand, lo, hi, epsrel=1e-11, limit=200)[0]
         atom = self._atom()
         if atom is not None:

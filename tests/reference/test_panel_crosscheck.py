@@ -61,8 +61,9 @@ def test_estimates_within_recursion_bounds(panel_case, method):
     case, xs, bounds = panel_case
     if method not in methods_for(case.portfolio):
         # the estimator refuses this model (no line without a limit, or not light-tailed)
-        pytest.raises(MethodError, exceedance, case.portfolio, xs, method=method,
-                      precision=Precision(samples=1000), seed=3)
+        with pytest.raises(MethodError):
+            exceedance(case.portfolio, xs, method=method, precision=Precision(samples=1000),
+                       seed=3)
         return
     res = exceedance(case.portfolio, xs, method=method, precision=Precision(samples=SAMPLES),
                      seed=3)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import numbers
 from collections.abc import Sequence
+from typing import ClassVar
 
 import numpy as np
 
@@ -54,3 +55,24 @@ def finite_numbers(name: str, values: Sequence[float] | np.ndarray, *,
             raise ParameterError(f"{name}.{i}", f"must be a finite number >= {minimum:g}, "
                                  f"got {float(v)!r}")
     return x
+
+
+class ByFields:
+    """Value semantics from the class's `_fields`: repr, equality and hashing by parameters
+    (for laws that cannot be dataclasses, e.g. whose parameter clashes with a property)."""
+
+    _fields: ClassVar[tuple[str, ...]]
+
+    def _values(self) -> tuple[float, ...]:
+        return tuple(getattr(self, name) for name in self._fields)
+
+    def __repr__(self) -> str:
+        args = ", ".join(f"{n}={v!r}" for n, v in zip(self._fields, self._values(), strict=True))
+        return f"{type(self).__name__}({args})"
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, ByFields) and type(other) is type(self) and (
+            self._values() == other._values())
+
+    def __hash__(self) -> int:
+        return hash((type(self).__name__, self._values()))

@@ -25,6 +25,7 @@ from core.severities._numeric import (
     _Floats,
     _log1m_exp,
 )
+from core.validate import ByFields
 from core.validate import real as _finite
 
 
@@ -440,25 +441,6 @@ def _check_probability(name: str, values: _Floats) -> None:
         raise ParameterError(name, "must be in [0, 1]")
 
 
-class _Plain(Severity):
+class _Plain(ByFields, Severity):
     """Value semantics for the families whose parameter is called `mean` (it clashes with the
     base property, so they cannot be dataclasses): repr, equality and hashing from `_fields`."""
-
-    _fields: ClassVar[tuple[str, ...]]
-
-    def _values(self) -> tuple[float, ...]:
-        return tuple(getattr(self, name) for name in self._fields)
-
-    def __repr__(self) -> str:
-        args = ", ".join(f"{n}={v!r}" for n, v in zip(self._fields, self._values(), strict=True))
-        return f"{type(self).__name__}({args})"
-
-    def __eq__(self, other: object) -> bool:
-        return (
-            isinstance(other, _Plain)
-            and type(other) is type(self)
-            and self._values() == other._values()
-        )
-
-    def __hash__(self) -> int:
-        return hash((type(self).__name__, self._values()))

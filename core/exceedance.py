@@ -4,68 +4,33 @@ from __future__ import annotations
 
 import time
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from core import intervals
-from core.diagnostics import MAX_SHARE, ContributionStats
-from core.errors import ParameterError
 from core.estimators import registry, select
 from core.estimators.base import Group
 from core.invariants import check_monotone, check_probability
 from core.portfolio import Portfolio
+
+if TYPE_CHECKING:
+    from core.credit.model import CreditModel
+from core.exceedance_records import (
+    check_seed,
+    check_thresholds,
+    draw_seed,
+    estimate_record,
+    warnings_for,
+)
 from core.precision import GroupRun, Precision, run_group
-from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
+from core.results import ExceedanceEstimate, ExceedanceResult
 from core.sampling import block_size
 from core.streams import Purpose, Stream
-from core.validate import finite_numbers
 
 # What a request may ask for: auto and every registered estimator (core.estimators.registry).
 METHODS = registry.methods()
-
-
-def draw_seed() -> int:
-    # 53 bits so that JSON clients that hold numbers as doubles round-trip it exactly.
-    entropy = np.random.SeedSequence().entropy
-    assert isinstance(entropy, int)
-    return entropy % (1 << 53)
-
-
-def check_thresholds(thresholds: Sequence[float]) -> np.ndarray:
-    return finite_numbers("thresholds", thresholds)
-
-
-def check_seed(seed: int | None) -> int:
-    if seed is None:
-        return draw_seed()
-    if int(seed) != seed or seed < 0:
-        raise ParameterError("seed", f"must be a non-negative integer, got {seed!r}")
-    return int(seed)
-
-
-def _estimate(
-    x: float, stats: ContributionStats, col: int, samples: int, method: str,
-    diag: Diagnostics,
-) -> ExceedanceEstimate:
-    p = float(np.asarray(stats.mean())[col])
-    hits = int(np.asarray(stats.hits)[col])
-    if hits == 0 or p <= 0.0:
-        # Nothing observed: the one-sided 95% bound (core.intervals).
-        return ExceedanceEstimate(
-            threshold=x, value=0.0, std_error=None, relative_error=None, ci_low=0.0,
-            ci_high=min(1.0, intervals.no_hit_upper(samples)), samples=samples, hits=0,
-            diagnostics=diag, method=method,
-        )
-    se = float(np.asarray(stats.std_error())[col])
-    if registry.get(method).indicator:
-        low, high = intervals.clopper_pearson(hits, samples)  # a count of hits
-    else:
-        low, high = intervals.normal(p, se, upper=1.0)
-    return ExceedanceEstimate(
-        threshold=x, value=p, std_error=se, relative_error=se / p,
-        ci_low=min(low, p), ci_high=max(high, p), samples=samples,
-        hits=hits, diagnostics=diag, method=method,
-    )
+# The request checks live in core.exceedance_records; named here for callers.
+__all__ = ["METHODS", "check_seed", "check_thresholds", "draw_seed", "exceedance"]
 
 
 def _run(
@@ -86,30 +51,24 @@ def _run(
         for col, i in enumerate(group.indices):
             # Violations of the invariants become flags here, so that auto retries them.
             out[i] = check_probability(
-                _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col]))[0]
+                estimate_record(float(x[i]), run.stats, col, run.samples, name, diags[col],
+                                indicator=registry.get(name).indicator))[0]
     return out, stops
 
 
-def _warnings(estimates: list[ExceedanceEstimate]) -> list[str]:
-    notes = []
-    for e in estimates:
-        d = e.diagnostics
-        if e.hits == 0:
-            notes.append(f"threshold {e.threshold:g}: no sample reached it; ci_high is a "
-                         "one-sided 95% upper bound")
-        elif not d.reliable:
-            notes.append(f"threshold {e.threshold:g}: estimate flagged unreliable: {d.reason}")
-        if d.largest_share is not None and d.largest_share > MAX_SHARE:
-            notes.append(f"threshold {e.threshold:g}: one sample carries "
-                         f"{100 * d.largest_share:.0f}% of the estimate")
-    return notes
-
-
 def exceedance(
-    portfolio: Portfolio, thresholds: Sequence[float], *, method: str = "auto",
+    portfolio: Portfolio | CreditModel, thresholds: Sequence[float], *, method: str = "auto",
     precision: Precision | None = None, seed: int | None = None,
 ) -> ExceedanceResult:
-    """Estimate P(S > x) for every x in `thresholds`, with intervals and diagnostics."""
+    """Estimate P(S > x) for every x in `thresholds`, with intervals and diagnostics.
+    A credit portfolio (core.credit.CreditModel) goes to the credit estimators."""
+    from core.credit.model import CreditModel
+
+    if isinstance(portfolio, CreditModel):
+        from core.credit.exceedance import credit_exceedance
+
+        return credit_exceedance(portfolio, thresholds, method=method, precision=precision,
+                                 seed=seed)
     start = time.monotonic()
     x = check_thresholds(thresholds)
     seed = check_seed(seed)
@@ -142,7 +101,7 @@ def exceedance(
     estimates, notes = check_monotone([found[i] for i in range(x.size)], x.tolist())
     order = ("time_limit", "max_samples", "samples", "relative_error")
     stopped = next(s for s in order if s in stops)
-    warnings = _warnings(estimates) + notes
+    warnings = warnings_for(estimates) + notes
     if stopped == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     used = sorted({e.method for e in estimates})

@@ -11,28 +11,48 @@ derivative of TVaR in VaR vanishes at the true VaR).
 
 from __future__ import annotations
 
-import math
 import time
-from collections.abc import Callable, Sequence
-from functools import cached_property
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+from core.curves import (
+    PILOT_SAMPLES,
+    _Curves,
+    _grid,
+    _layer_error,
+    _layers,
+    _losses,
+    _measure,
+    _var_error,
+    layout_block,
+    point_columns,
+)
 from core.diagnostics import ContributionStats
 from core.estimators import registry, select
 from core.estimators.base import Group, work_per_sample
 from core.exceedance import check_seed
-from core.intervals import Z95, no_hit_upper, normal
 from core.invariants import check_tail
 from core.levels import Layer, check_levels, guess_var
 from core.portfolio import Portfolio
 from core.precision import GroupRun, Precision, run_group
-from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
+from core.results import (
+    Contribution,
+    Interval,
+    LayerEstimate,
+    MeasureEstimate,
+    TailResult,
+)
 from core.sampling import block_size
 from core.streams import Purpose, Stream
 
+if TYPE_CHECKING:
+    from core.credit.model import CreditModel
+
 # Layer and the result records live in core.levels and core.results; named here for callers.
 __all__ = [
+    "Contribution",
     "Interval",
     "Layer",
     "LayerEstimate",
@@ -40,78 +60,6 @@ __all__ = [
     "TailResult",
     "tail_estimates",
 ]
-
-# The figure a relative-error target applies to, from the merged statistics.
-ErrorOf = Callable[[ContributionStats], float]
-
-GRID = 64
-PILOT_SAMPLES = 8192
-
-
-def _invert(a: np.ndarray, curve: np.ndarray, p: float) -> float | None:
-    """The a where a decreasing curve crosses p, interpolating log P linearly in a."""
-    above = np.flatnonzero(curve >= p)
-    if above.size == 0 or above[-1] == a.size - 1:
-        return None
-    g = int(above[-1])
-    y0, y1 = curve[g], curve[g + 1]
-    if y1 > 0 and y0 > 0:
-        w = (math.log(y0) - math.log(p)) / (math.log(y0) - math.log(y1))
-    else:
-        w = (y0 - p) / (y0 - y1) if y0 != y1 else 0.0
-    return float(a[g] + min(max(w, 0.0), 1.0) * (a[g + 1] - a[g]))
-
-
-def _interp_log(a: np.ndarray, y: np.ndarray, x: float) -> float:
-    if np.all(y > 0):
-        return float(np.exp(np.interp(x, a, np.log(y))))
-    return float(np.interp(x, a, y))
-
-
-class _Curves:
-    """Exceedance and stop-loss estimates with bands on the grid, from merged statistics."""
-
-    def __init__(self, a: np.ndarray, stats_: ContributionStats) -> None:
-        g = a.size
-        mean = np.asarray(stats_.mean(), dtype=float)
-        se = np.asarray(stats_.std_error(), dtype=float)
-        self.a = a
-        self.p, self.p_se = mean[:g], se[:g]
-        self.sl, self.sl_se = mean[g:2 * g], se[g:2 * g]
-        self.extra, self.extra_se = mean[2 * g:], se[2 * g:]
-        self.low = np.maximum(self.p - Z95 * self.p_se, 0.0)
-        self.high = self.p + Z95 * self.p_se
-        self.stats = stats_
-
-    @cached_property
-    def diagnostics(self) -> list[Diagnostics]:
-        return self.stats.diagnose()
-
-    def var(self, q: float) -> tuple[float | None, float | None, float | None]:
-        p = 1.0 - q
-        return _invert(self.a, self.p, p), _invert(self.a, self.low, p), _invert(
-            self.a, self.high, p)
-
-
-def _grid(points: Sequence[float], spread: float) -> np.ndarray:
-    lo = max(min(points) * (1.0 - spread), 1e-12)
-    hi = max(points) * (1.0 + spread)
-    return np.geomspace(lo, hi, GRID)
-
-
-def _var_error(q: np.ndarray, a: np.ndarray) -> ErrorOf:
-    def error_of(stats_: ContributionStats) -> float:
-        curves = _Curves(a, stats_)
-        worst = 0.0
-        for level in q:
-            v, lo, hi = curves.var(float(level))
-            if v is None or lo is None or hi is None:
-                return math.inf
-            worst = max(worst, 0.5 * (hi - lo) / v)
-        return worst
-
-    return error_of
-
 
 def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> list[float]:
     guesses = [guess_var(portfolio, float(level)) for level in q]
@@ -129,14 +77,21 @@ def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> li
 
 
 def tail_estimates(
-    portfolio: Portfolio, *, levels: Sequence[float] = (), layers: Sequence[Layer] = (),
-    losses: Sequence[float] = (), method: str = "auto", precision: Precision | None = None,
-    seed: int | None = None,
+    portfolio: Portfolio | CreditModel, *, levels: Sequence[float] = (),
+    layers: Sequence[Layer] = (), losses: Sequence[float] = (), method: str = "auto",
+    precision: Precision | None = None, seed: int | None = None,
 ) -> TailResult:
     """VaR and TVaR at `levels`, `layers` losses and P(S > loss) for `losses`, from one
     sample set. With `auto`, a result with a figure flagged unreliable is redone with the
     next candidate (at most one per estimator family), and the first fully reliable one is
     kept; when none is, the first is returned with its flags."""
+    from core.credit.model import CreditModel
+
+    if isinstance(portfolio, CreditModel):
+        from core.credit.measures import credit_tail
+
+        return credit_tail(portfolio, levels=levels, layers=layers, losses=losses,
+                           method=method, precision=precision, seed=seed)
     start = time.monotonic()
     seed = check_seed(seed)
     precision = precision or Precision()
@@ -227,27 +182,11 @@ def _run(name: str, portfolio: Portfolio, a: np.ndarray, q: np.ndarray, layers: 
          start: float) -> tuple[_Curves, GroupRun]:
     """Main run: the grid's exceedance and stop-loss columns, then per layer its loss,
     attachment and exhaustion columns, then P(S > loss) per loss."""
-    n_layers = len(layers)
-    extra = [ly.attachment for ly in layers] + [
-        ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
+    extra = point_columns(layers, losses)
     values = registry.get(name).contributions(
         portfolio, np.concatenate([a, np.asarray(extra, dtype=float)]), anchors, seed)
     g, e = a.size, len(extra)
-
-    def block(m: int, rng: np.random.Generator) -> np.ndarray:
-        v = values(m, rng)
-        exceed, sl = v[:, :g + e], v[:, g + e:]
-        cols = [exceed[:, :g], sl[:, :g]]
-        for i, ly in enumerate(layers):
-            top = sl[:, g + n_layers + i] if ly.limit is not None else 0.0
-            cols += [(sl[:, g + i] - top)[:, None], exceed[:, g + i:g + i + 1],
-                     exceed[:, g + n_layers + i:g + n_layers + i + 1]]
-        if len(losses):
-            cols.append(exceed[:, g + 2 * n_layers:])
-        # Differences of monotone per-sample values are >= 0 up to rounding.
-        out: np.ndarray = np.maximum(np.hstack(cols), 0.0)
-        return out
-
+    block = layout_block(values, g, layers, losses)
     group = Group((0,), block, work_per_sample(portfolio.expected_claims, 2 * (g + e)), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     error_of = _var_error(q, a) if q.size else _layer_error(g)
@@ -255,75 +194,3 @@ def _run(name: str, portfolio: Portfolio, a: np.ndarray, q: np.ndarray, layers: 
                     Stream(Purpose.MEASURE_SAMPLES, registry.get(name).stream), deadline,
                     error_of=error_of)
     return _Curves(a, run.stats), run
-
-
-def _layer_error(g: int) -> ErrorOf:
-    def error_of(stats_: ContributionStats) -> float:
-        mean = np.asarray(stats_.mean(), dtype=float)[2 * g:]
-        se = np.asarray(stats_.std_error(), dtype=float)[2 * g:]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            re = np.where(mean > 0, se / mean, np.inf)
-        return float(np.max(re)) if re.size else 0.0
-
-    return error_of
-
-
-def _measure(curves: _Curves, q: float) -> MeasureEstimate:
-    v, lo, hi = curves.var(q)
-    a = curves.a
-    g = int(np.clip(np.searchsorted(a, v if v is not None else a[0]), 0, a.size - 1))
-    diag = curves.diagnostics[g]
-    if v is None:
-        nan_safe = float(a[-1])
-        var = Interval(value=nan_safe, ci_low=float(a[0]), ci_high=nan_safe)
-        return MeasureEstimate(level=q, var=var, tvar=var, diagnostics=diag)
-    lo = lo if lo is not None else float(a[0])
-    hi = hi if hi is not None else float(a[-1])
-    sl = _interp_log(a, curves.sl, v)
-    sl_se = float(np.interp(v, a, curves.sl_se))
-    tail = 1.0 - q
-    tvar = v + sl / tail
-    half = Z95 * sl_se / tail
-    return MeasureEstimate(
-        level=q,
-        var=Interval(value=v, ci_low=min(lo, v), ci_high=max(hi, v)),
-        tvar=Interval(value=tvar, ci_low=max(v, tvar - half), ci_high=tvar + half,
-                      std_error=sl_se / tail),
-        diagnostics=diag,
-    )
-
-
-def _interval(value: float, se: float, n: int, cap: float = 1.0) -> Interval:
-    """value +- 1.96 se; with nothing observed, the one-sided 95% bound of core.intervals times
-    the largest possible value (1 for a probability, the limit for a layer), never 0 +- 0."""
-    if value <= 0.0 and se <= 0.0:
-        return Interval(value=0.0, ci_low=0.0, ci_high=no_hit_upper(n, cap), std_error=None)
-    low, high = normal(value, se, upper=cap)
-    return Interval(value=value, ci_low=low, ci_high=high, std_error=se)
-
-
-def _layers(curves: _Curves, a: np.ndarray, layers: Sequence[Layer]) -> list[LayerEstimate]:
-    out = []
-    diags = curves.diagnostics
-    for i, ly in enumerate(layers):
-        col = 3 * i
-        el, el_se = curves.extra[col], curves.extra_se[col]
-        n = curves.stats.n
-        pa = _interval(float(curves.extra[col + 1]), float(curves.extra_se[col + 1]), n)
-        pe = None if ly.limit is None else _interval(float(curves.extra[col + 2]),
-                                                     float(curves.extra_se[col + 2]), n)
-        out.append(LayerEstimate(
-            attachment=ly.attachment, limit=ly.limit,
-            expected_loss=_interval(float(el), float(el_se), n,
-                                    ly.limit if ly.limit is not None else math.inf),
-            probability_attach=pa, probability_exhaust=pe,
-            diagnostics=diags[2 * a.size + col],
-        ))
-    return out
-
-
-def _losses(curves: _Curves, n_layers: int, losses: Sequence[float]) -> list[Interval]:
-    base = 3 * n_layers
-    return [_interval(float(curves.extra[base + i]), float(curves.extra_se[base + i]),
-                      curves.stats.n)
-            for i in range(len(losses))]

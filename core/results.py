@@ -133,13 +133,24 @@ class Interval:
 
 
 @dataclass(frozen=True, kw_only=True)
+class Contribution:
+    """A line's Euler allocation of TVaR, E[S_i | S > VaR], scaled so the lines sum to TVaR."""
+
+    label: str
+    tvar_contribution: float
+    ci_low: float
+    ci_high: float
+
+
+@dataclass(frozen=True, kw_only=True)
 class MeasureEstimate:
-    """VaR and TVaR at one level."""
+    """VaR and TVaR at one level (with per-line TVaR contributions where computed)."""
 
     level: float
     var: Interval
     tvar: Interval
     diagnostics: Diagnostics
+    contributions: list[Contribution] = field(default_factory=list)
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -36,6 +36,7 @@ class Purpose(IntEnum):
     MEASURE_ADAPT = 5  # adapted mixture components of risk measures (block = round)
     RUIN_PATHS = 6  # surplus paths (Siegmund, finite horizon tilted or crude)
     RUIN_JUMPS = 7  # the finite-horizon conditional estimator's paths
+    EULER = 8  # the sample set of per-line TVaR contributions (Euler allocation)
 
 
 def method_id(name: str) -> int:

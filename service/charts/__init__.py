@@ -31,6 +31,7 @@ IMAGE_FORMATS: tuple[str, ...] = get_args(ImageFormat)
 class Chart:
     name: str
     title: str
+    caption: str  # what the chart shows, for a figure caption
     applies: Callable[[BaseModel], bool]
     draw: Callable[[BaseModel], Figure]
 
@@ -38,14 +39,25 @@ class Chart:
 CHARTS: dict[str, Chart] = {
     chart.name: chart
     for chart in (
-        Chart("exceedance", "Exceedance curve", exceedance.applies, exceedance.draw),
-        Chart("var_tvar", "Value-at-risk and tail value-at-risk", measures.applies,
-              measures.draw),
-        Chart("layers", "Layer losses and probabilities", layers.applies, layers.draw),
-        Chart("ruin", "Ruin probability by capital", ruin.applies, ruin.draw),
-        Chart("contributions", "Contributions of the lines to TVaR", contributions.applies,
-              contributions.draw),
-        Chart("reliability", "Reliability of each figure", reliability.applies,
+        Chart("exceedance", "Exceedance curve",
+              "P(S > x) against the loss x on log axes, with 95% intervals (rigorous bounds "
+              "for method recursion); dotted lines mark the 1-in-10 to 1-in-1000 year return "
+              "periods (common practice).", exceedance.applies, exceedance.draw),
+        Chart("var_tvar", "Value-at-risk and tail value-at-risk",
+              "VaR and TVaR at each confidence level with their 95% intervals.",
+              measures.applies, measures.draw),
+        Chart("layers", "Layer losses and probabilities",
+              "Expected loss to each aggregate layer, and the probabilities that it is hit "
+              "and used up; hatched bars are flagged unreliable.", layers.applies, layers.draw),
+        Chart("ruin", "Ruin probability by capital",
+              "psi(u) against the initial capital u, with the classical approximation and the "
+              "capital for the target when asked.", ruin.applies, ruin.draw),
+        Chart("contributions", "Contributions of the lines to TVaR",
+              "Euler contributions of each line to TVaR per level (they add up to TVaR), with "
+              "95% intervals.", contributions.applies, contributions.draw),
+        Chart("reliability", "Reliability of each figure",
+              "Relative error of every figure; hatched bars marked unreliable are figures "
+              "whose error bar the diagnostics do not trust.", reliability.applies,
               reliability.draw),
     )
 }

@@ -22,7 +22,12 @@ matplotlib.use("Agg")  # no display on a server; set before anything else draws
 
 from matplotlib.axes import Axes  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
-from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter  # noqa: E402
+from matplotlib.ticker import (  # noqa: E402
+    FuncFormatter,
+    LogLocator,
+    NullFormatter,
+    NullLocator,
+)
 
 ImageFormat = Literal["svg", "png"]
 
@@ -139,7 +144,9 @@ def log_axis(ax: Axes, which: Literal["x", "y"], formatter: FuncFormatter) -> No
     axis = ax.xaxis if which == "x" else ax.yaxis
     (ax.set_xscale if which == "x" else ax.set_yscale)("log")
     axis.set_major_formatter(formatter)
-    axis.set_minor_formatter(HIDDEN)
+    # No minor ticks: the 1-2-5 major ticks read well, and minor ticks were a third of the
+    # drawing time of a report.
+    axis.set_minor_locator(NullLocator())
 
 
 def tidy_log_ticks(ax: Axes) -> None:

@@ -14,13 +14,16 @@ from service.executor import ComputePool
 from service.metrics import Metrics, MetricsMiddleware, route_templates
 from service.routes import (
     charts,
+    docs,
     exceedance,
     health,
     layers,
     metrics,
+    report,
     risk_measures,
     ruin,
     runs,
+    ui,
 )
 from service.schemas.exceedance import ExceedanceRequest
 from service.schemas.layers import LayersRequest
@@ -57,7 +60,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             await runs_worker.stop()
             pool.shutdown()
 
-    app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan)
+    # docs_url / redoc_url None: FastAPI's pages load their assets from a CDN; ours are served
+    # by the app (service/routes/docs.py).
+    app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan,
+                  docs_url=None, redoc_url=None)
     app.state.settings = settings
     app.state.metrics = instruments
     app.state.pool = pool
@@ -77,6 +83,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         ruin.build_router(examples=examples["ruin"]),
         runs.build_router(examples=runs.run_examples(settings.examples_dir)),
         charts.build_router(examples=examples),
+        report.build_router(),
+        ui.build_router(),
+        docs.build_router(title=app.title, openapi_url=app.openapi_url or "/openapi.json"),
         health.build_router(),
         metrics.build_router(),
     ]

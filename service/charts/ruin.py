@@ -44,7 +44,7 @@ def draw(response: BaseModel) -> Figure:
         ax.plot([a for a, _ in approx], [b for _, b in approx], color=style.SLATE,
                 linestyle="-.", linewidth=1.1, label="classical approximation",
                 gid="series-approximation")
-    bad = [(e.capital, e.probability) for e in points if not e.diagnostics.reliable]
+    bad = [(e.capital, e.probability or 0.0) for e in points if not e.diagnostics.reliable]
     if bad:
         ax.plot([a for a, _ in bad], [b for _, b in bad], linestyle="none", marker="x",
                 markersize=9, markeredgewidth=1.8, color=style.ALERT,

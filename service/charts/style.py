@@ -14,7 +14,7 @@ import threading
 import xml.etree.ElementTree as ET
 from collections.abc import Iterator
 from contextlib import contextmanager
-from typing import Literal
+from typing import Any, Literal
 
 import matplotlib
 
@@ -44,7 +44,7 @@ DPI = 110
 WIDTH_IN = 7.2
 HEIGHT_IN = 3.9
 
-_RC = {
+_RC: dict[str, Any] = {
     "font.family": "sans-serif",
     "font.sans-serif": ["DejaVu Sans"],  # ships with matplotlib: the same on every machine
     "font.size": 9.5,
@@ -73,7 +73,7 @@ MEDIA_TYPES: dict[ImageFormat, str] = {"svg": "image/svg+xml", "png": "image/png
 @contextmanager
 def drawing() -> Iterator[None]:
     """Hold the drawing lock with our style in force."""
-    with _LOCK, matplotlib.rc_context(_RC):
+    with _LOCK, matplotlib.rc_context(_RC):  # type: ignore[arg-type]
         yield
 
 
@@ -198,7 +198,7 @@ def _annotate_svg(svg: bytes, ranges: dict[str, dict[str, str]], title: str) -> 
         if gid in ranges:
             for key, value in ranges[gid].items():
                 element.set(key, value)
-    return ET.tostring(root, encoding="utf-8", xml_declaration=False)
+    return bytes(ET.tostring(root, encoding="utf-8", xml_declaration=False))
 
 
 def save(fig: Figure, fmt: ImageFormat, *, title: str) -> bytes:

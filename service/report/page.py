@@ -14,7 +14,7 @@ from service import charts
 from service.charts.readings import readings
 from service.kinds import KINDS
 from service.report import tables, words
-from service.report.numbers import amount, number, seconds
+from service.report.numbers import amount, seconds
 from service.schemas.runs import (
     RunBatchIn,
     RunItemCancelled,
@@ -130,10 +130,9 @@ def _method(response: BaseModel, result: RunItemDone) -> str:
     ]
     if "mean" in data:
         # Null means infinite here (e.g. a Pareto line with alpha <= 2 has no variance).
-        mean, sd = data.get("mean"), data.get("std_dev")
-        lines.append(f"<p>Exact mean of S {escape(amount(mean) if mean is not None else 'infinite')}"
-                     f", standard deviation {escape(amount(sd) if sd is not None else 'infinite')}"
-                     ".</p>")
+        mean, sd = (amount(v) if v is not None else "infinite"
+                    for v in (data.get("mean"), data.get("std_dev")))
+        lines.append(f"<p>Exact mean of S {escape(mean)}, standard deviation {escape(sd)}.</p>")
     return "<div class='method'>" + "".join(lines) + "</div>"
 
 

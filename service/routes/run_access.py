@@ -34,14 +34,13 @@ def done_item(run: RunOut, batch: RunBatchIn, item_id: str) -> RunItemDone:
     if all(item.id != item_id for item in batch.items):
         raise HTTPException(404, detail=[detail_entry(
             ["path", "item_id"], f"run '{run.run_id}' has no item '{item_id}'", "not_found")])
+    status = "queued or running"
     for result in run.results:
         if result.id == item_id:
             if isinstance(result, RunItemDone):
                 return result
             status = result.status
             break
-    else:
-        status = "queued or running"
     raise HTTPException(409, detail=[detail_entry(
         ["path", "item_id"], f"item '{item_id}' has no result to draw: it is {status}",
         "item_not_done")])

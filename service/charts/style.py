@@ -180,8 +180,8 @@ def axis_ranges(fig: Figure) -> dict[str, dict[str, str]]:
         x0, x1 = ax.get_xlim()
         y0, y1 = ax.get_ylim()
         ranges[gid] = {
-            "data-x-min": repr(min(x0, x1)), "data-x-max": repr(max(x0, x1)),
-            "data-y-min": repr(min(y0, y1)), "data-y-max": repr(max(y0, y1)),
+            "data-x-min": repr(float(min(x0, x1))), "data-x-max": repr(float(max(x0, x1))),
+            "data-y-min": repr(float(min(y0, y1))), "data-y-max": repr(float(max(y0, y1))),
             "data-x-scale": ax.get_xscale(), "data-y-scale": ax.get_yscale(),
         }
     return ranges

@@ -2,17 +2,17 @@
 package): load a page, collect console errors, query the DOM, take a screenshot.
 
 Chromium is started with ``--remote-debugging-pipe``: it reads protocol messages from fd 3
-and writes to fd 4, each a JSON object ended by a NUL byte. A small shell ``exec`` maps two
-pipes of ours onto those numbers.
+and writes to fd 4, each a JSON object ended by a NUL byte. The child maps two pipes of ours
+onto those numbers just before it executes Chromium.
 """
 
 from __future__ import annotations
 
 import base64
+import fcntl
 import json
 import os
 import queue
-import shlex
 import shutil
 import subprocess
 import threading
@@ -26,6 +26,17 @@ FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-
          "--disable-dev-shm-usage", "--disable-extensions", "--mute-audio",
          "--remote-debugging-pipe"]
 CALL_TIMEOUT_S = 30.0
+
+
+def _high_pipe() -> tuple[int, int]:
+    """A pipe whose two ends are numbered 10 or above, so that moving them onto 3 and 4 in
+    the child can never overwrite one with the other."""
+    low_r, low_w = os.pipe()
+    r = fcntl.fcntl(low_r, fcntl.F_DUPFD_CLOEXEC, 10)
+    w = fcntl.fcntl(low_w, fcntl.F_DUPFD_CLOEXEC, 10)
+    os.close(low_r)
+    os.close(low_w)
+    return r, w
 
 
 def chromium_path() -> str | None:
@@ -50,14 +61,21 @@ class Browser:
         if binary is None:
             raise RuntimeError("chromium is not installed")
         self.width, self.height = width, height
-        to_browser_r, self._to_browser = os.pipe()
-        self._from_browser, from_browser_w = os.pipe()
-        command = shlex.join([binary, *FLAGS, f"--user-data-dir={profile_dir}",
-                              f"--window-size={width},{height}", "about:blank"])
+        self.log = profile_dir / "chromium.log"
+        to_browser_r, self._to_browser = _high_pipe()
+        self._from_browser, from_browser_w = _high_pipe()
+
+        def onto_3_and_4() -> None:  # runs in the child, before exec
+            os.dup2(to_browser_r, 3)  # dup2 leaves 3 and 4 inheritable
+            os.dup2(from_browser_w, 4)
+
+        # close_fds=False keeps 3 and 4 open through exec; every other descriptor of ours is
+        # non-inheritable (PEP 446) and closes there anyway.
         self.process = subprocess.Popen(
-            ["/bin/sh", "-c", f"exec {command} 3<&{to_browser_r} 4>&{from_browser_w}"],
-            pass_fds=(to_browser_r, from_browser_w), stdin=subprocess.DEVNULL,
-            stdout=subprocess.DEVNULL, stderr=(profile_dir / "chromium.log").open("wb"),
+            [binary, *FLAGS, f"--user-data-dir={profile_dir}", f"--window-size={width},{height}",
+             "about:blank"],
+            close_fds=False, preexec_fn=onto_3_and_4, stdin=subprocess.DEVNULL,
+            stdout=subprocess.DEVNULL, stderr=self.log.open("wb"),
         )
         os.close(to_browser_r)
         os.close(from_browser_w)
@@ -115,7 +133,12 @@ class Browser:
         except queue.Empty:
             raise TimeoutError(f"no answer from chromium to {waiting_for}") from None
         if reply is None:
-            raise RuntimeError(f"chromium closed the pipe while waiting for {waiting_for}")
+            try:
+                tail = self.log.read_text(errors="replace")[-2000:]
+            except OSError as exc:
+                tail = f"(no log: {exc})"
+            raise RuntimeError(f"chromium closed the pipe while waiting for {waiting_for} "
+                               f"(exit status {self.process.poll()}); its log ends:\n{tail}")
         return reply
 
     def wait_event(self, method: str, timeout: float = CALL_TIMEOUT_S) -> dict[str, Any]:

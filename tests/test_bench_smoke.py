@@ -2,7 +2,7 @@
 
 import json
 
-from bench import run, service
+from bench import credit, run, service
 
 
 def test_bench_runs_on_a_tiny_budget(capsys):
@@ -28,3 +28,9 @@ def test_report_bench_runs_on_a_tiny_budget(capsys, monkeypatch):
     assert "Run report of the month-end batch" in capsys.readouterr().out
     data = json.loads((report.OUT / "report_quick.json").read_text())
     assert data["bytes"] > 50_000 and len(data["report_cpu_s"]) == 1
+
+
+def test_credit_bench_runs_on_a_tiny_budget(capsys):
+    assert credit.main(["--quick"]) == 0
+    printed = capsys.readouterr().out
+    assert "Glasserman-Li" in printed and "Cost:" in printed

@@ -7,7 +7,7 @@ The chart shows them as grouped horizontal bars with their 95% intervals.
 
 from __future__ import annotations
 
-from typing import Protocol
+from typing import TYPE_CHECKING
 
 import numpy as np
 from matplotlib.figure import Figure
@@ -16,21 +16,17 @@ from pydantic import BaseModel
 from service.charts import style
 from service.schemas.risk_measures import MeasureOut, RiskMeasuresResponse
 
+if TYPE_CHECKING:  # imported for the annotation only: service.schemas.credit must be
+    # imported through service.schemas.common first (the two refer to each other)
+    from service.schemas.credit import ContributionOut
+
 # Fill and hatch per level: told apart in greyscale by lightness and pattern.
 _LOOKS = ((style.SLATE, None), (style.SAND, "..."), (style.MIST, "//"), ("white", "xx"))
 
 
-class Contribution(Protocol):
-    label: str | None
-    tvar_contribution: float | None
-    ci_low: float | None
-    ci_high: float | None
-
-
-def contributions_of(measure: MeasureOut) -> list[Contribution]:
-    """The measure's per-line contributions; empty for an independent portfolio."""
-    found = getattr(measure, "contributions", None)
-    return list(found) if found else []
+def contributions_of(measure: MeasureOut) -> list[ContributionOut]:
+    """The measure's Euler contributions; empty for a portfolio of claim lines."""
+    return list(measure.contributions)
 
 
 def applies(response: BaseModel) -> bool:

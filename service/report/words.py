@@ -79,14 +79,15 @@ def portfolio(spec: dict[str, Any]) -> list[str]:
     """One sentence per line, then how the lines are coupled."""
     lines = spec.get("lines") or []
     sentences = [line(item, i) for i, item in enumerate(lines) if isinstance(item, dict)]
-    dependence = spec.get("dependence")
-    if isinstance(dependence, dict):
-        copula = str(dependence.get("copula", "")).replace("_", "-")
-        df = f" with {number(dependence['df'])} degrees of freedom" if dependence.get(
-            "df") is not None else ""
-        sentences.append(f"The lines' period losses are coupled by a {copula} copula{df}.")
-    elif spec.get("factors"):
-        sentences.append("The lines are coupled through common factors (factor loadings).")
+    dependence, factors = spec.get("dependence"), spec.get("factors")
+    if isinstance(dependence, dict) or isinstance(factors, dict):
+        copula = (str(dependence.get("copula", "gaussian")).replace("_", "-")
+                  if isinstance(dependence, dict) else "gaussian")
+        df = (f" with {number(dependence['df'])} degrees of freedom"
+              if isinstance(dependence, dict) and dependence.get("df") is not None else "")
+        through = (f" through {number(factors.get('count'))} common factors (factor loadings)"
+                   if isinstance(factors, dict) else " (correlation matrix)")
+        sentences.append(f"The lines are dependent: a {copula} copula{df}{through}.")
     else:
         sentences.append("The lines are independent; S is the sum of their period losses.")
     return sentences

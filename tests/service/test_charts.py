@@ -3,19 +3,20 @@ series, its axis ranges contain the data, and every marker sits inside the plott
 
 from __future__ import annotations
 
+import json
 from typing import Any
 
 import pytest
 from fastapi.testclient import TestClient
-from pydantic import BaseModel
 from svg_reading import frame, inside, markers, parse, series
 
 from service import charts
 from service.charts import style
 from service.schemas.exceedance import ExceedanceResponse
 from service.schemas.layers import LayersResponse
-from service.schemas.risk_measures import MeasureOut, RiskMeasuresResponse
+from service.schemas.risk_measures import RiskMeasuresResponse
 from service.schemas.ruin import RuinResponse
+from service.settings import DEFAULT_EXAMPLES_DIR
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
@@ -184,40 +185,22 @@ def test_ruin_chart_draws_psi_band_approximation_and_the_target(client: TestClie
     assert charts.render("ruin", response, "png").startswith(PNG_SIGNATURE)
 
 
-class _Contribution(BaseModel):
-    label: str | None
-    tvar_contribution: float | None
-    ci_low: float | None
-    ci_high: float | None
-
-
-class _MeasureWithContributions(MeasureOut):
-    contributions: list[_Contribution]
-
-
-class _DependentResponse(RiskMeasuresResponse):
-    measures: list[_MeasureWithContributions]  # type: ignore[assignment]
-
-
-def test_contributions_chart_draws_one_series_per_level_and_a_bar_per_line(
-        measures: RiskMeasuresResponse) -> None:
-    # The shape the dependence work adds to risk measures; the split is made up for drawing.
-    body = measures.model_dump()
-    for m in body["measures"]:
-        tvar = m["tvar"]
-        m["contributions"] = [
-            {"label": "motor", "tvar_contribution": 0.6 * tvar, "ci_low": 0.55 * tvar,
-             "ci_high": 0.65 * tvar},
-            {"label": "property", "tvar_contribution": 0.4 * tvar, "ci_low": 0.35 * tvar,
-             "ci_high": 0.45 * tvar}]
-    response = _DependentResponse.model_validate(body)
+def test_contributions_chart_draws_one_series_per_level_and_a_bar_per_group(
+        client: TestClient, measures: RiskMeasuresResponse) -> None:
+    body = json.loads((DEFAULT_EXAMPLES_DIR / "risk_measures_bond_and_loan_book.json")
+                      .read_text(encoding="utf-8"))
+    body["precision"] = {"samples": 2000}
+    response = RiskMeasuresResponse.model_validate(_post(client, "/v1/risk-measures", body))
     assert "contributions" in charts.kinds_for(response)
-    assert "contributions" not in charts.kinds_for(measures)
+    assert "contributions" not in charts.kinds_for(measures)  # claim lines: none
     root = parse(charts.render("contributions", response))
     n = len(response.measures)
     assert set(series(root)) == {f"series-contribution-{k}" for k in range(n)}
+    groups = {c.label for m in response.measures for c in m.contributions}
     bars = [el for el in root.iter() if el.get("id", "").startswith("bar-contribution-")]
-    assert len(bars) == 2 * n
+    assert len(bars) == sum(
+        c.tvar_contribution is not None for m in response.measures for c in m.contributions)
+    assert len(groups) == 5  # the example's obligor groups
     f = frame(root, "contributions")
     for m in response.measures:
         for c in m.contributions:

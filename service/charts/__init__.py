@@ -52,9 +52,9 @@ CHARTS: dict[str, Chart] = {
         Chart("ruin", "Ruin probability by capital",
               "psi(u) against the initial capital u, with the classical approximation and the "
               "capital for the target when asked.", ruin.applies, ruin.draw),
-        Chart("contributions", "Contributions of the lines to TVaR",
-              "Euler contributions of each line to TVaR per level (they add up to TVaR), with "
-              "95% intervals.", contributions.applies, contributions.draw),
+        Chart("contributions", "Contributions to TVaR",
+              "Euler contributions of each obligor group to TVaR per level (they add up to "
+              "TVaR), with 95% intervals.", contributions.applies, contributions.draw),
         Chart("reliability", "Reliability of each figure",
               "Relative error of every figure; hatched bars marked unreliable are figures "
               "whose error bar the diagnostics do not trust.", reliability.applies,

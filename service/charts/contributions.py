@@ -79,8 +79,8 @@ def draw(response: BaseModel) -> Figure:
     ax.invert_yaxis()
     ax.axvline(0.0, color=style.INK, linewidth=0.8)
     ax.xaxis.set_major_formatter(style.MONEY_FORMAT)
-    ax.set_xlabel("contribution to TVaR (money units; Euler allocation, lines add up to TVaR)")
-    ax.set_title("Contributions of the lines to tail value-at-risk")
+    ax.set_xlabel("contribution to TVaR (money units; Euler allocation: they add up to TVaR)")
+    ax.set_title("Contributions to tail value-at-risk")
     style.value_grid(ax, "x")
     ax.legend(loc="lower right")
     return fig

@@ -83,7 +83,7 @@ def risk_measures(r: RiskMeasuresResponse) -> list[Table]:
         if parts:
             tables.append(Table(
                 f"Contributions to TVaR {percent(m.level)} (Euler allocation)",
-                ["line", "contribution", "95% interval", "share of TVaR"],
+                ["group", "contribution", "95% interval", "share of TVaR"],
                 [[c.label or f"line {i + 1}", amount(c.tvar_contribution),
                   _money_interval(c.ci_low, c.ci_high),
                   percent(None if not m.tvar or c.tvar_contribution is None

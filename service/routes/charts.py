@@ -42,8 +42,8 @@ IMAGE_RESPONSE: dict[int | str, dict[str, Any]] = {
 KIND_HELP = (
     "Which chart: exceedance (P(S > x) on log axes), var_tvar (VaR and TVaR by level), layers, "
     "ruin (psi(u) by capital), contributions (Euler contributions of obligor groups to TVaR, "
-    "when the result has them), reliability (relative error and reliable flag of every figure). Absent: the "
-    "first that applies."
+    "when the result has them), reliability (relative error and reliable flag of every "
+    "figure). Absent: the first that applies."
 )
 
 

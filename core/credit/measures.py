@@ -46,6 +46,7 @@ from core.estimators.base import BlockFn, Group
 from core.exceedance import check_seed
 from core.functionals import spread_out
 from core.intervals import Z95
+from core.invariants import check_tail
 from core.levels import Layer, check_levels
 from core.precision import GroupRun, Precision, run_group
 from core.results import Contribution, Interval, MeasureEstimate, TailResult
@@ -144,6 +145,8 @@ def credit_tail(
         if not m.diagnostics.reliable:
             warnings.append(f"level {m.level:g}: flagged unreliable: {m.diagnostics.reason}")
     layer_out = _layers(curves, a, layers)
+    measures, layer_out, notes = check_tail(measures, layer_out)
+    warnings += notes
     for ly in layer_out:
         if not ly.diagnostics.reliable:
             warnings.append(f"layer {ly.attachment:g} xs: flagged unreliable: "

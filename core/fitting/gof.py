@@ -64,7 +64,7 @@ def _kaplan_meier(u: Floats, censored: np.ndarray) -> tuple[Floats, Floats]:
     t, c = u[order], censored[order]
     at_risk = np.arange(t.size, 0, -1, dtype=float)
     factor = np.where(c, 1.0, 1.0 - 1.0 / at_risk)
-    return t, 1.0 - np.cumprod(factor)
+    return t, np.asarray(1.0 - np.cumprod(factor), dtype=np.float64)
 
 
 def _integrals(a: Floats, b: Floats, g: Floats) -> tuple[Floats, Floats]:

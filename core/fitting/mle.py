@@ -18,8 +18,7 @@ from scipy import optimize
 
 from core.errors import ParameterError
 from core.fitting import hessian as fd
-from core.fitting.data import ClaimData, Floats
-from core.fitting.likelihood import objective
+from core.fitting.data import Floats
 
 _NEWTON_STEPS = 8
 # A replicate refit stops when its step is below this many standard errors: the statistics

@@ -146,6 +146,26 @@ class GeneralizedParetoSeverity(RequestModel):
     scale: PositiveMoney = Field(description="Scale in money units (0 < scale <= 10^18).")
 
 
+class SplicedTail(RequestModel):
+    xi: Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-10, le=10)] = Field(
+        description="Generalized Pareto shape of the excess over the threshold.")
+    scale: PositiveMoney = Field(description="Generalized Pareto scale in money units.")
+
+
+class SplicedSeverity(RequestModel):
+    family: Literal["spliced"] = Field(
+        description="A body law below a threshold and a generalized Pareto tail above it "
+        "(as /v1/fit returns it): density w f_body(x) / F_body(threshold) at or below the "
+        "threshold, (1 - w) g(x - threshold) above."
+    )
+    threshold: PositiveMoney = Field(description="Splice point in money units.")
+    body_weight: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, lt=1)] = Field(
+        description="Probability w that a claim is at or below the threshold.")
+    body: Annotated[LognormalSeverity | GammaSeverity, Field(discriminator="family")] = Field(
+        description="Body law (lognormal or gamma), truncated to the threshold.")
+    tail: SplicedTail
+
+
 Severity = Annotated[
     LognormalSeverity
     | ParetoSeverity
@@ -153,7 +173,8 @@ Severity = Annotated[
     | GammaSeverity
     | ExponentialSeverity
     | NormalSeverity
-    | GeneralizedParetoSeverity,
+    | GeneralizedParetoSeverity
+    | SplicedSeverity,
     Field(discriminator="family", description="Claim-size distribution, by family."),
 ]
 
@@ -162,10 +183,27 @@ def severity_upper_end(severity: Severity) -> float | None:
     """Right end of the claim-size support, or None when unbounded."""
     if isinstance(severity, GeneralizedParetoSeverity) and severity.xi < 0:
         return severity.scale / -severity.xi
+    if isinstance(severity, SplicedSeverity) and severity.tail.xi < 0:
+        return severity.threshold + severity.tail.scale / -severity.tail.xi
     return None
 
 
 # --- portfolio ------------------------------------------------------------------------------
+
+
+class ParameterUncertaintySpec(RequestModel):
+    covariance: list[list[Annotated[float, Field(strict=True, allow_inf_nan=False)]]] = Field(
+        min_length=1, max_length=8,
+        description="Covariance matrix of the severity's parameters, rows and columns in the "
+        "order of the severity's fields after family (e.g. mu, sigma; for spliced: the body's "
+        "two, body_weight, tail xi, tail scale), as /v1/fit returns it. Symmetric, positive "
+        "semi-definite.",
+    )
+    draws: Annotated[int, Field(strict=True, ge=20, le=1000)] = Field(
+        default=100,
+        description="Parameter draws of the nested simulation (20 .. 1000); each costs one "
+        "run of the request's figures.",
+    )
 
 
 class LineSpec(RequestModel):
@@ -184,6 +222,12 @@ class LineSpec(RequestModel):
     limit: PositiveMoney | None = Field(
         default=None,
         description="Per-claim limit in money units (0 < limit <= 10^18); null = unlimited.",
+    )
+    parameter_uncertainty: ParameterUncertaintySpec | None = Field(
+        default=None,
+        description="Uncertainty of the severity's parameters (e.g. from /v1/fit): the "
+        "figures then also carry an interval that includes it, from a nested simulation "
+        "over parameter draws. Absent: the parameters are taken as known.",
     )
 
     @model_validator(mode="after")

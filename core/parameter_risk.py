@@ -24,7 +24,7 @@ import math
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 from numpy.typing import NDArray
@@ -63,7 +63,7 @@ class ParameterInterval:
     parameter_std_dev: float
     sampling_low: float
     sampling_high: float
-    dominant: str  # "parameter" or "sampling"
+    dominant: Literal["parameter", "sampling"]
     draws: int
 
 

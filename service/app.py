@@ -12,8 +12,9 @@ from service.errors import install_error_handlers
 from service.examples import load_examples
 from service.executor import ComputePool
 from service.metrics import Metrics, MetricsMiddleware, route_templates
-from service.routes import exceedance, health, layers, metrics, risk_measures, ruin, runs
+from service.routes import exceedance, fit, health, layers, metrics, risk_measures, ruin, runs
 from service.schemas.exceedance import ExceedanceRequest
+from service.schemas.fit import FitRequest
 from service.schemas.layers import LayersRequest
 from service.schemas.risk_measures import RiskMeasuresRequest
 from service.settings import Settings
@@ -61,6 +62,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             settings.examples_dir, "risk_measures", RiskMeasuresRequest)),
         layers.build_router(examples=load_examples(settings.examples_dir, "layers", LayersRequest)),
         ruin.build_router(examples=ruin.ruin_examples(settings.examples_dir)),
+        fit.build_router(examples=fit.fit_examples(settings.examples_dir, FitRequest)),
         runs.build_router(examples=runs.run_examples(settings.examples_dir)),
         health.build_router(),
         metrics.build_router(),

@@ -13,6 +13,7 @@ from typing import Any
 
 import core
 from core.errors import MethodError, ParameterError, TailgaugeError
+from core.fitting.spliced import Spliced
 from core.measures import Interval, Layer, LayerEstimate, MeasureEstimate, TailResult
 from core.results import (
     CapitalForTarget,
@@ -42,6 +43,21 @@ _SEVERITIES: dict[str, Callable[..., Any]] = {
     "normal": core.Normal,
     "generalized_pareto": core.GeneralizedPareto,
 }
+
+
+def _spliced(*, threshold: float, body_weight: float, body: dict[str, Any],
+             tail: dict[str, Any]) -> Spliced:
+    parts = dict(body)
+    family = parts.pop("family")
+    with located("body"):
+        body_law = _SEVERITIES[family](**parts)
+    with located("tail"):
+        tail_law = core.GeneralizedPareto(**tail)
+    return Spliced(body=body_law, threshold=threshold, body_weight=body_weight,
+                   tail_law=tail_law)
+
+
+_SEVERITIES["spliced"] = _spliced
 _COUNTS: dict[str, Callable[..., Any]] = {
     "fixed": core.Fixed,
     "poisson": core.Poisson,

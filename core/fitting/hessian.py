@@ -54,14 +54,15 @@ def hessian(f: Callable[[Floats], float], z: Floats) -> tuple[Floats, float]:
     z = np.asarray(z, dtype=float)
     f0 = f(z)
     h = _FRACTION * scales(f, z, f0)
-    for _ in range(20):
-        fine, coarse = _second(f, z, h, f0), _second(f, z, 2.0 * h, f0)
-        if np.all(np.isfinite(fine)) and np.all(np.isfinite(coarse)):
-            break
-        h = h / 2.0
-    best = (4.0 * fine - coarse) / 3.0
-    size = max(float(np.max(np.abs(best))), 1e-300)
-    return best, float(np.max(np.abs(fine - coarse))) / size
+    with np.errstate(invalid="ignore"):  # inf - inf where a step left the domain
+        for _ in range(20):
+            fine, coarse = _second(f, z, h, f0), _second(f, z, 2.0 * h, f0)
+            if np.all(np.isfinite(fine)) and np.all(np.isfinite(coarse)):
+                break
+            h = h / 2.0
+        best = (4.0 * fine - coarse) / 3.0
+        size = max(float(np.max(np.abs(best))), 1e-300)
+        return best, float(np.max(np.abs(fine - coarse))) / size
 
 
 def gradient(f: Callable[[Floats], float], z: Floats, h: Floats) -> Floats:
@@ -77,12 +78,19 @@ def gradient(f: Callable[[Floats], float], z: Floats, h: Floats) -> Floats:
 
 
 def central(f: Callable[[Floats], float], z: Floats, h: Floats) -> Floats:
-    """Plain central-difference gradient (2 evaluations per coordinate)."""
+    """Central-difference gradient (2 evaluations per coordinate); one-sided where a step
+    leaves the domain (f = inf there, e.g. a bounded support crossing a claim)."""
     g = np.empty(z.size)
+    f0: float | None = None
     for i in range(z.size):
         e = np.zeros(z.size)
         e[i] = h[i]
-        g[i] = (f(z + e) - f(z - e)) / (2.0 * h[i])
+        up, down = f(z + e), f(z - e)
+        if math.isfinite(up) and math.isfinite(down):
+            g[i] = (up - down) / (2.0 * h[i])
+            continue
+        f0 = f(z) if f0 is None else f0
+        g[i] = (up - f0) / h[i] if math.isfinite(up) else (f0 - down) / h[i]
     return g
 
 

@@ -51,7 +51,7 @@ class Spliced(Severity):
             raise ParameterError("threshold", f"must be finite and > 0, got {self.threshold}")
         if not 0.0 < self.body_weight < 1.0:
             raise ParameterError("body_weight", f"must be in (0, 1), got {self.body_weight}")
-        if not float(self.body.logcdf(self.threshold)) > -math.inf:
+        if not self._log_body_mass > -math.inf:
             raise ParameterError("body", "puts no mass below the threshold")
 
     @property
@@ -83,7 +83,7 @@ class Spliced(Severity):
         u, w = self.threshold, self.body_weight
         low = x <= u
         out = np.empty_like(x)
-        share = np.exp(np.asarray(self.body.logcdf(x[low])) - self._log_body_mass)
+        share = np.exp(self.body._logcdf(x[low]) - self._log_body_mass)  # x in (0, u]
         out[low] = np.log1p(-w * np.minimum(share, 1.0))
         out[~low] = math.log1p(-w) + self.tail_law.logsf(x[~low] - u)
         return out

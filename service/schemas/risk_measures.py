@@ -9,6 +9,7 @@ from pydantic import BaseModel, Field, ValidationInfo, field_validator
 from pydantic_core import PydanticCustomError
 
 from service.schemas.common import ComputationOut, DiagnosticsOut, Money, PortfolioRequest
+from service.schemas.parameter_risk import ParameterIntervalOut
 
 # 1 - 1/T must stay distinguishable from 1 in double precision (about 1e-16 apart).
 RETURN_PERIOD_MAX = 1e12
@@ -88,6 +89,16 @@ class MeasureOut(BaseModel):
     diagnostics: DiagnosticsOut = Field(
         description="How far the error bar of the exceedance estimate at VaR_q can be trusted."
     )
+    var_with_parameters: ParameterIntervalOut | None = Field(
+        default=None,
+        description="With parameter_uncertainty on a line: the interval of VaR_q that also "
+        "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
+    )
+    tvar_with_parameters: ParameterIntervalOut | None = Field(
+        default=None,
+        description="With parameter_uncertainty on a line: the interval of TVaR_q that also "
+        "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
+    )
 
 
 class CurvePointOut(BaseModel):
@@ -110,6 +121,11 @@ class CurvePointOut(BaseModel):
     diagnostics: DiagnosticsOut = Field(
         description="How far the error bar of the exceedance estimate at this loss can be "
         "trusted."
+    )
+    loss_with_parameters: ParameterIntervalOut | None = Field(
+        default=None,
+        description="With parameter_uncertainty on a line: the interval of the loss that also "
+        "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
     )
 
 
@@ -158,3 +174,6 @@ class RiskMeasuresResponse(ComputationOut):
         description="Exceedance probability and return period per requested loss, in request "
         "order (empty when none were asked for)."
     )
+    parameter_draws: int | None = Field(
+        default=None, description="Parameter draws of the nested simulation (lines with "
+        "parameter_uncertainty only).")

@@ -53,7 +53,7 @@ def make() -> dict[str, Any]:
         "tail_threshold": 25_000.0,
         "counts": [int(c) for c in counts],
         "exposures": list(EXPOSURES),
-        "bootstrap": {"replicates": 49, "max_claims": 500},
+        "bootstrap": {"replicates": 19, "max_claims": 500},
         "seed": 17,
     }
 

@@ -100,9 +100,17 @@ class Spliced(Severity):
         return out
 
     def _moment(self, k: int) -> float:
+        # E X^k = w E[X^k | X <= u] + (1 - w) E[(u + Y)^k], Y the GPD excess (binomial sum
+        # of its closed-form moments); the body's truncated moment is its limited moment
+        # E[min(X, u)^k] less u^k P(X > u), both in closed form for lognormal and gamma.
         if self.tail_law.xi * k >= 1:
             return math.inf
-        return self._numeric_moment(k)
+        u, w = self.threshold, self.body_weight
+        limited = float(self.body._limited(np.array([u]), k)[0])  # type: ignore[attr-defined]
+        head = (limited - u**k * float(self.body.sf(u))) / math.exp(self._log_body_mass)
+        tail = sum(math.comb(k, j) * u ** (k - j) * self.tail_law.moment(j) if j else u**k
+                   for j in range(k + 1))
+        return w * head + (1 - w) * tail
 
 
 def default_threshold(x: Floats) -> float:

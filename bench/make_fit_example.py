@@ -27,7 +27,8 @@ LIMIT_SHARES = (0.6, 0.3, 0.1)
 EXPOSURES = (41.0, 43.5, 45.0, 47.2, 50.1, 52.3, 55.0, 58.4)  # thousands of policies
 TRUTH_RATE = 1.1  # reported claims per thousand policies and year
 TRUTH_NB_SIZE = 30.0
-PATH = Path(__file__).resolve().parents[1] / "openapi_examples" / "fit_commercial_property_fire.json"
+EXAMPLES = Path(__file__).resolve().parents[1] / "openapi_examples"
+PATH = EXAMPLES / "fit_commercial_property_fire.json"
 
 
 def make() -> dict[str, Any]:
@@ -61,9 +62,9 @@ def make() -> dict[str, Any]:
 def main() -> None:
     PATH.write_text(json.dumps(make(), indent=1) + "\n", encoding="utf-8")
     body = make()
-    print(f"wrote {PATH.name}: {len(body['claims'])} claims, "
-          f"{sum(c is not None and x >= c for x, c in zip(body['claims'], body['censored_at'], strict=True))} "
-          "at their limit")
+    capped = sum(c is not None and x >= c
+                 for x, c in zip(body["claims"], body["censored_at"], strict=True))
+    print(f"wrote {PATH.name}: {len(body['claims'])} claims, {capped} at their limit")
 
 
 if __name__ == "__main__":

@@ -179,7 +179,7 @@ def test_spliced_moments_match_quadrature():
                       tail_law=GeneralizedPareto(xi=0.2, scale=5.0))
         for k in (1, 2):
             # Source: scipy.integrate.quad of x^k f(x) over the body and the tail.
-            ref = sum(integrate.quad(lambda x, k=k: x**k * float(law.pdf(x)), a, b,
+            ref = sum(integrate.quad(lambda x, k=k, law=law: x**k * float(law.pdf(x)), a, b,
                                      epsabs=0, epsrel=1e-12, limit=400)[0]
                       for a, b in ((0, 10.0), (10.0, math.inf)))
             assert law.moment(k) == pytest.approx(ref, rel=1e-7)

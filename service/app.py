@@ -27,8 +27,10 @@ losses and ruin probabilities of a surplus process, each with a 95% interval, th
 reproduces it and the precision reached.
 
 **Cautions.** Model risk dominates sampling error: the intervals cover the sampling error of
-the stated model only. Results are estimates for that model, not advice. Capital and reserving
-figures follow the local regulator's rules and need a qualified actuary's sign-off.
+the stated model only (plus its parameter uncertainty where a line carries
+`parameter_uncertainty`; the choice of family is never covered). Results are estimates for
+that model, not advice. Capital and reserving figures follow the local regulator's rules and
+need a qualified actuary's sign-off.
 """
 
 

@@ -163,7 +163,8 @@ class SplicedSeverity(RequestModel):
         description="Probability w that a claim is at or below the threshold.")
     body: Annotated[LognormalSeverity | GammaSeverity, Field(discriminator="family")] = Field(
         description="Body law (lognormal or gamma), truncated to the threshold.")
-    tail: SplicedTail
+    tail: SplicedTail = Field(description="Generalized Pareto law of the excess over the "
+                              "threshold.")
 
 
 Severity = Annotated[

@@ -60,7 +60,9 @@ class FitRequest(RequestModel):
         default=None, max_length=MAX_PERIODS,
         description="Exposure of each period of counts (> 0); the count mean is rate x "
         "exposure. The ready count law is for the last period's exposure.")
-    bootstrap: BootstrapSpec = Field(default_factory=BootstrapSpec)
+    bootstrap: BootstrapSpec = Field(
+        default_factory=BootstrapSpec,
+        description="Size of the parametric bootstrap behind the goodness-of-fit p-values.")
     seed: Annotated[int, Field(strict=True, ge=0, le=MAX_JSON_SAFE_INT)] | None = Field(
         default=None, description="Root seed of the bootstrap streams (0 .. 2^53-1); drawn "
         "and returned when absent.")
@@ -101,7 +103,7 @@ class UncertaintyOut(BaseModel):
 
 
 class SeverityFitOut(BaseModel):
-    family: str
+    family: str = Field(description="Family fitted.")
     parameters: dict[str, float] = Field(description="Maximum-likelihood estimates.")
     std_errors: dict[str, float | None] = Field(
         description="Standard errors from the observed information (null when it is not "
@@ -109,10 +111,11 @@ class SeverityFitOut(BaseModel):
     covariance: list[list[float]] | None = Field(
         description="Covariance of the estimates (inverse observed information), rows and "
         "columns in the order of parameters.")
-    log_likelihood: float
+    log_likelihood: float = Field(
+        description="Maximised log-likelihood (truncation and censoring included).")
     aic: float = Field(description="2 k - 2 log L.")
     bic: float = Field(description="k log n - 2 log L.")
-    tests: TestsOut
+    tests: TestsOut = Field(description="Goodness-of-fit statistics with bootstrap p-values.")
     qq: list[QQPointOut] = Field(description="Up to 100 points for a QQ plot.")
     severity: dict[str, Any] | None = Field(
         description="The fitted law as a portfolio line's severity JSON; null when a "
@@ -120,15 +123,18 @@ class SeverityFitOut(BaseModel):
     parameter_uncertainty: UncertaintyOut | None = Field(
         description="The ready parameter_uncertainty of a portfolio line with this severity.")
     tail_threshold: float | None = Field(description="Splice point (spliced families only).")
-    notes: list[str]
+    notes: list[str] = Field(
+        description="Remarks on this fit (boundary optimum, bootstrap sizes, ranges).")
 
 
 class TailPointOut(BaseModel):
-    threshold: float
-    exceedances: int
-    value: float
-    ci_low: float | None
-    ci_high: float | None
+    threshold: float = Field(description="Threshold u in money units.")
+    exceedances: int = Field(description="Claims above u.")
+    value: float = Field(description="The diagnostic at u.")
+    ci_low: float | None = Field(
+        description="Lower end of its 95% interval (null when unavailable).")
+    ci_high: float | None = Field(
+        description="Upper end of its 95% interval (null when unavailable).")
 
 
 class TailOut(BaseModel):
@@ -139,22 +145,24 @@ class TailOut(BaseModel):
     hill: list[TailPointOut] = Field(
         description="Hill estimates of xi = 1/alpha from the k largest claims (exceedances = "
         "k, threshold = the (k+1)-th largest claim).")
-    hill_k: int | None
+    hill_k: int | None = Field(description="The k of the headline Hill estimate, round(sqrt(n)).")
     hill_xi: float | None = Field(description="Hill estimate at k = round(sqrt(n)).")
-    hill_ci_low: float | None
-    hill_ci_high: float | None
-    notes: list[str]
+    hill_ci_low: float | None = Field(description="Lower end of the 95% interval of hill_xi.")
+    hill_ci_high: float | None = Field(description="Upper end of the 95% interval of hill_xi.")
+    notes: list[str] = Field(description="Caveats of the diagnostics (e.g. censoring).")
 
 
 class CountFitOut(BaseModel):
-    family: str
+    family: str = Field(description="poisson or negative_binomial.")
     parameters: dict[str, float] = Field(
         description="rate: claims per unit of exposure; size: negative binomial r.")
-    std_errors: dict[str, float | None]
-    covariance: list[list[float]] | None
-    log_likelihood: float
-    aic: float
-    bic: float
+    std_errors: dict[str, float | None] = Field(
+        description="Standard errors (observed information; closed form for the Poisson rate).")
+    covariance: list[list[float]] | None = Field(
+        description="Covariance of the estimates, in the order of parameters.")
+    log_likelihood: float = Field(description="Maximised log-likelihood of the counts.")
+    aic: float = Field(description="2 k - 2 log L.")
+    bic: float = Field(description="k log T - 2 log L (T periods).")
     count: dict[str, Any] = Field(
         description="The fitted law for one period of the last period's exposure, as a "
         "portfolio line's count JSON.")
@@ -162,19 +170,22 @@ class CountFitOut(BaseModel):
 
 class DispersionOut(BaseModel):
     statistic: float = Field(description="Index of dispersion sum (n - m e)^2 / (m e).")
-    df: int
+    df: int = Field(description="Degrees of freedom, periods - 1.")
     p_value: float = Field(description="chi-square upper tail: small means over-dispersed.")
 
 
 class FitResponse(BaseModel):
-    engine_version: str
-    seed: int
-    elapsed_s: float | None
-    claims: int
-    censored: int
-    warnings: list[str]
+    engine_version: str = Field(description="Version of the computation engine.")
+    seed: int = Field(description="Root seed of the bootstrap streams (0 .. 2^53-1).")
+    elapsed_s: float | None = Field(description="Engine wall time in seconds.")
+    claims: int = Field(description="Number of claims fitted.")
+    censored: int = Field(description="Number of claims at their limit (right-censored).")
+    warnings: list[str] = Field(
+        description="Things the caller should know (families not fitted, count notes).")
     fits: list[SeverityFitOut] = Field(description="One per fitted family, by AIC (best "
                                        "first).")
-    tail: TailOut
-    count_fits: list[CountFitOut]
-    dispersion: DispersionOut | None
+    tail: TailOut = Field(description="Diagnostics for the choice of a tail threshold.")
+    count_fits: list[CountFitOut] = Field(
+        description="Poisson and negative binomial fits (empty without counts).")
+    dispersion: DispersionOut | None = Field(
+        description="Index-of-dispersion test of the Poisson (null without counts).")

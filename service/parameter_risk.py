@@ -7,6 +7,7 @@ from collections.abc import Callable, Sequence
 from typing import Any
 
 import core
+from core.errors import MethodError
 from core.parameter_risk import NestedResult, ParameterInterval, ParameterUncertainty
 from service import compute
 from service.executor import ComputePool
@@ -19,9 +20,13 @@ from service.translate import finite_or_none
 
 
 def uncertainty(spec: PortfolioSpec) -> dict[int, ParameterUncertainty]:
-    return {k: ParameterUncertainty(covariance=line.parameter_uncertainty.covariance,
-                                    draws=line.parameter_uncertainty.draws)
-            for k, line in enumerate(spec.lines) if line.parameter_uncertainty is not None}
+    out = {}
+    for k, line in enumerate(spec.lines):
+        # Lines of obligors carry no claim-size parameters (and no such field).
+        given = getattr(line, "parameter_uncertainty", None)
+        if given is not None:
+            out[k] = ParameterUncertainty(covariance=given.covariance, draws=given.draws)
+    return out
 
 
 def interval(p: ParameterInterval | None) -> ParameterIntervalOut | None:
@@ -69,11 +74,16 @@ def attach_exceedance(response: ExceedanceResponse, nested: NestedResult) -> Non
 
 
 async def run(pool: ComputePool, spec: PortfolioSpec, plain: Callable[..., Any],
-              with_risk: Callable[..., tuple[Any, NestedResult]], portfolio: core.Portfolio,
+              with_risk: Callable[..., tuple[Any, NestedResult]], portfolio: Any,
               *args: Any, wall_limit_s: float, **kwargs: Any) -> tuple[Any, NestedResult | None]:
     """The engine call, or its parameter-risk form when some line carries
     parameter_uncertainty (absent everywhere: exactly the plain call)."""
     unc = uncertainty(spec)
+    if unc and not isinstance(portfolio, core.Portfolio):
+        k = min(unc)
+        raise MethodError(f"portfolio.lines[{k}].parameter_uncertainty",
+                          "is supported in portfolios of claim lines only (this portfolio has "
+                          "lines of obligors)")
     if not unc:
         return await compute.run_engine(pool, plain, portfolio, *args,
                                         wall_limit_s=wall_limit_s, **kwargs), None

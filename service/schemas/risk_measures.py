@@ -9,6 +9,7 @@ from pydantic import BaseModel, Field, ValidationInfo, field_validator
 from pydantic_core import PydanticCustomError
 
 from service.schemas.common import ComputationOut, DiagnosticsOut, Money, PortfolioRequest
+from service.schemas.credit import ContributionOut
 from service.schemas.parameter_risk import ParameterIntervalOut
 
 # 1 - 1/T must stay distinguishable from 1 in double precision (about 1e-16 apart).
@@ -98,6 +99,11 @@ class MeasureOut(BaseModel):
         default=None,
         description="With parameter_uncertainty on a line: the interval of TVaR_q that also "
         "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
+    )
+    contributions: list[ContributionOut] = Field(
+        default_factory=list,
+        description="Euler allocation of TVaR_q to the obligor groups (they sum to TVaR_q); "
+        "empty for a portfolio of claim lines.",
     )
 
 

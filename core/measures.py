@@ -21,7 +21,7 @@ import numpy as np
 from scipy import stats
 
 from core.diagnostics import ContributionStats
-from core.errors import ParameterError
+from core.errors import MethodError, ParameterError
 from core.estimators import select
 from core.estimators.base import Group, work_per_sample
 from core.exceedance import Z95, check_seed
@@ -59,11 +59,22 @@ class Interval:
 
 
 @dataclass(frozen=True, kw_only=True)
+class Contribution:
+    """A line's Euler allocation of TVaR, E[S_i | S > VaR], scaled so the lines sum to TVaR."""
+
+    label: str
+    tvar_contribution: float
+    ci_low: float
+    ci_high: float
+
+
+@dataclass(frozen=True, kw_only=True)
 class MeasureEstimate:
     level: float
     var: Interval
     tvar: Interval
     diagnostics: Diagnostics
+    contributions: list[Contribution] = field(default_factory=list)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -182,8 +193,12 @@ def _var_error(q: np.ndarray, a: np.ndarray) -> object:
 def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> list[float]:
     guesses = [guess_var(portfolio, float(level)) for level in q]
     a = np.geomspace(max(min(guesses) / 20.0, 1e-9), max(guesses) * 20.0, 160)
-    values = sampler("conditional" if name == "conditional_is" else name, portfolio, a,
-                     guesses, seed)
+    if portfolio.dependence is not None:
+        values = _dependent_values(name, portfolio, a, guesses, seed,
+                                   euler=np.zeros(0, np.int64))
+    else:
+        values = sampler("conditional" if name == "conditional_is" else name, portfolio, a,
+                         guesses, seed)
     stats_ = ContributionStats.from_samples(
         values(PILOT_SAMPLES, block_rng(seed, PILOT, _STREAM, 0)))
     curves = _Curves(a, stats_)
@@ -207,6 +222,10 @@ def tail_estimates(
     seed = check_seed(seed)
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
+    if method == "recursion" and portfolio.dependence is not None:
+        raise MethodError("method", "recursion does not apply to a dependent portfolio "
+                                    "(portfolio.dependence): no rigorous bounds for a "
+                                    "copula-coupled sum are implemented; use auto")
     if method == "recursion":
         from core.recursion_measures import tail_bounds
 
@@ -256,6 +275,14 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
             warnings.append(f"VaR interval at levels {missing} runs past the estimation grid; "
                             "increase samples")
     measures = [_measure(curves, float(level), portfolio) for level in q]
+    if portfolio.dependence is not None:
+        from core.dependence.allocation import with_contributions
+
+        idx = euler_points(portfolio, g=a.size)
+        tail_cols = idx.size * len(portfolio.lines)
+        mean = np.asarray(curves.stats.mean(), dtype=float)[-tail_cols:]
+        se = np.asarray(curves.stats.std_error(), dtype=float)[-tail_cols:]
+        measures = [with_contributions(ms, a[idx], mean, se, portfolio) for ms in measures]
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
     if run.stopped_by == "time_limit":
@@ -275,6 +302,25 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
     )
 
 
+def euler_points(portfolio: Portfolio, *, g: int) -> np.ndarray:
+    """Grid points where the Euler terms E[S_i 1{S > a}] are kept (all for a few lines, every
+    fourth for more, so the columns stay bounded)."""
+    step = 1 if len(portfolio.lines) <= 4 else 4
+    return np.arange(0, g, step, dtype=np.int64)
+
+
+def _dependent_values(name: str, portfolio: Portfolio, points: np.ndarray,
+                      anchors: Sequence[float], seed: int, *, euler: np.ndarray):
+    """[exceedance | stop-loss | Euler terms] of a dependent portfolio's estimator."""
+    from core.dependence import engine
+
+    n_pts = points.size
+    fn = engine.values(name, portfolio, points, anchors, euler, seed,
+                       smallest_tail=1e-9)
+    width = 2 * n_pts + euler.size * len(portfolio.lines)
+    return lambda m, rng: fn(m, rng)[:, :width]
+
+
 def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str,
             seed: int) -> tuple[list[str], str]:
     """Candidate names, best first, and the reason in words."""
@@ -283,6 +329,10 @@ def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str
     points = [guess_var(portfolio, float(level)) for level in q] + [x for x in extra if x > 0]
     # The pilot compares estimators at the extreme points only: it costs a pilot per point.
     probe = sorted(points)[:: max(1, len(points) - 1)] if points else [portfolio.mean]
+    if portfolio.dependence is not None:
+        from core.dependence.exceed import choose
+
+        return choose(portfolio, np.asarray(probe), seed, measures=True)
     trials, reason = select.choose(portfolio, np.asarray(probe), seed)
     return [t.name for t in trials], reason
 
@@ -293,13 +343,17 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     n_layers = len(layers)
     extra = [ly.attachment for ly in layers] + [
         ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
-    values = sampler(name, portfolio, np.concatenate([a, np.asarray(extra, dtype=float)]),
-                     anchors, seed)
+    points = np.concatenate([a, np.asarray(extra, dtype=float)])
+    if portfolio.dependence is not None:
+        values = _dependent_values(name, portfolio, points, anchors, seed,
+                                   euler=euler_points(portfolio, g=a.size))
+    else:
+        values = sampler(name, portfolio, points, anchors, seed)
     g, e = a.size, len(extra)
 
     def block(m: int, rng: np.random.Generator) -> np.ndarray:
         v = values(m, rng)
-        exceed, sl = v[:, :g + e], v[:, g + e:]
+        exceed, sl = v[:, :g + e], v[:, g + e:2 * (g + e)]
         cols = [exceed[:, :g], sl[:, :g]]
         for i, ly in enumerate(layers):
             top = sl[:, g + n_layers + i] if ly.limit is not None else 0.0
@@ -307,6 +361,7 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
                      exceed[:, g + n_layers + i:g + n_layers + i + 1]]
         if len(losses):
             cols.append(exceed[:, g + 2 * n_layers:])
+        cols.append(v[:, 2 * (g + e):])  # Euler terms of a dependent portfolio (else empty)
         # Differences of monotone per-sample values are >= 0 up to rounding.
         return np.maximum(np.hstack(cols), 0.0)
 

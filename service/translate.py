@@ -11,7 +11,10 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import Any
 
+import numpy as np
+
 import core
+from core.dependence.copula import Copula
 from core.errors import MethodError, ParameterError, TailgaugeError
 from core.measures import Interval, Layer, LayerEstimate, MeasureEstimate, TailResult
 from core.results import (
@@ -23,6 +26,7 @@ from core.results import (
     RuinResult,
 )
 from service.schemas.common import ComputationOut, DiagnosticsOut, LineSpec, PortfolioSpec
+from service.schemas.dependence import ContributionOut
 from service.schemas.exceedance import ExceedanceEstimateOut, ExceedanceResponse
 from service.schemas.layers import LayerOut, LayerSpec, LayersResponse
 from service.schemas.risk_measures import (
@@ -93,8 +97,17 @@ def _line(spec: LineSpec, path: str) -> core.Line:
 
 def portfolio(spec: PortfolioSpec) -> core.Portfolio:
     lines = [_line(line, f"portfolio.lines[{i}]") for i, line in enumerate(spec.lines)]
+    dep = None
+    if spec.dependence is not None:
+        # The copula's errors already name portfolio.dependence.<field>[.row.column].
+        from core.dependence.copula import check_correlation
+
+        d = spec.dependence
+        check_correlation(d.correlation, size=len(lines))
+        dep = Copula(kind=d.copula, correlation=np.asarray(d.correlation, dtype=float),
+                     df=d.df)
     with located("portfolio"):
-        return core.Portfolio(lines=lines)
+        return core.Portfolio(lines=lines, dependence=dep)
 
 
 def layers(specs: list[LayerSpec]) -> list[Layer]:
@@ -218,7 +231,11 @@ def _reciprocal(p: float | None) -> float | None:
 
 
 def _measure(m: MeasureEstimate) -> MeasureOut:
+    contributions = [ContributionOut(label=c.label, tvar_contribution=c.tvar_contribution,
+                                     ci_low=c.ci_low, ci_high=c.ci_high)
+                     for c in m.contributions] or None
     return MeasureOut(
+        contributions=contributions,
         level=float(m.level),
         var=finite_or_none(m.var.value),
         var_ci_low=finite_or_none(m.var.ci_low),

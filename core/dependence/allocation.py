@@ -9,10 +9,15 @@ the accumulators do not keep covariances between columns.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 import numpy.typing as npt
 
 from core.portfolio import Portfolio
+
+if TYPE_CHECKING:
+    from core.measures import MeasureEstimate
 
 FloatArray = npt.NDArray[np.float64]
 Z95 = 1.959963984540054
@@ -24,13 +29,12 @@ def _at(points: FloatArray, values: FloatArray, v: float) -> float:
     return float(np.interp(v, points, values))
 
 
-def with_contributions(measure: object, points: FloatArray, mean: FloatArray, se: FloatArray,
-                       portfolio: Portfolio) -> object:
+def with_contributions(measure: MeasureEstimate, points: FloatArray, mean: FloatArray,
+                       se: FloatArray, portfolio: Portfolio) -> MeasureEstimate:
     from dataclasses import replace
 
-    from core.measures import Contribution, MeasureEstimate
+    from core.measures import Contribution
 
-    assert isinstance(measure, MeasureEstimate)
     m = len(portfolio.lines)
     e = mean.reshape(points.size, m)
     s = se.reshape(points.size, m)

@@ -150,8 +150,8 @@ def line_functionals(
     if n > rows:
         parts = [line_functionals(b[k:k + rows], c, log_x, largest=largest, euler=euler)
                  for k in range(0, n, rows)]
-        eu = None if euler is None else np.concatenate([p[2] for p in parts  # type: ignore[misc]
-                                                        ])
+        eu = None if euler is None else np.concatenate(
+            [p[2] for p in parts if p[2] is not None])
         return (np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts]),
                 eu)
     return _functionals(b, c, log_x, largest, euler)

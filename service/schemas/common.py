@@ -11,6 +11,8 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from service.schemas.dependence import DependenceSpec
+
 # JavaScript clients hold integers exactly only up to 2**53 - 1; seeds stay inside that range.
 MAX_JSON_SAFE_INT = 2**53 - 1
 # Fewer samples than this give no usable error bar; the engine refuses them too.
@@ -202,21 +204,28 @@ class LineSpec(RequestModel):
 class PortfolioSpec(RequestModel):
     lines: list[LineSpec] = Field(
         min_length=1,
-        description="Independent lines of business; the portfolio loss S is the sum of their "
-        "per-period aggregate losses.",
+        description="Lines of business (independent unless `dependence` is given); the "
+        "portfolio loss S is the sum of their per-period aggregate losses.",
+    )
+    dependence: DependenceSpec | None = Field(
+        default=None,
+        description="Optional copula coupling the lines' period losses; absent = independent.",
     )
 
 
 # --- method and precision -------------------------------------------------------------------
 
 Method = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion"]
+PortfolioMethod = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion",
+                          "mean_shift", "radial"]
 
 METHOD_DESCRIPTION = (
     "Estimator: auto (chosen from the model's tails and a short pilot), crude (plain Monte "
     "Carlo), tilted (exponential tilting, light tails), conditional (Asmussen-Kroese "
     "conditional Monte Carlo, heavy tails), conditional_is (conditional Monte Carlo over which "
     "claim is largest), recursion (deterministic discretised recursion with lower and upper "
-    "bounds)."
+    "bounds); for a dependent portfolio also mean_shift (importance sampling on the copula's "
+    "normals) and radial (Kortschak-Hashorva, correlated lognormal amounts; exceedance only)."
 )
 
 
@@ -267,7 +276,7 @@ class PortfolioRequest(RequestModel):
     """Fields shared by every request that computes figures of a portfolio's loss S."""
 
     portfolio: PortfolioSpec = Field(description="The portfolio loss model: its lines.")
-    method: Method = Field(default="auto", description=METHOD_DESCRIPTION)
+    method: PortfolioMethod = Field(default="auto", description=METHOD_DESCRIPTION)
     precision: PrecisionSpec = Field(
         default_factory=PrecisionSpec,
         description="Precision target and budgets; server limits apply to every budget.",

@@ -280,9 +280,14 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
 
         idx = euler_points(portfolio, g=a.size)
         tail_cols = idx.size * len(portfolio.lines)
-        mean = np.asarray(curves.stats.mean(), dtype=float)[-tail_cols:]
-        se = np.asarray(curves.stats.std_error(), dtype=float)[-tail_cols:]
-        measures = [with_contributions(ms, a[idx], mean, se, portfolio) for ms in measures]
+        g = a.size
+        mean = np.asarray(curves.stats.mean(), dtype=float)
+        se = np.asarray(curves.stats.std_error(), dtype=float)
+        bounds = (mean[-2 * g:-g] - Z95 * se[-2 * g:-g], mean[-g:] + Z95 * se[-g:])
+        e_mean = mean[-(tail_cols + 2 * g):-2 * g]
+        e_se = se[-(tail_cols + 2 * g):-2 * g]
+        measures = [with_contributions(_grid_widened(ms, a, bounds), a[idx], e_mean, e_se,
+                                       portfolio) for ms in measures]
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
     if run.stopped_by == "time_limit":
@@ -302,6 +307,23 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
     )
 
 
+def _grid_widened(ms: MeasureEstimate, a: np.ndarray,
+                  bounds: tuple[np.ndarray, np.ndarray]) -> MeasureEstimate:
+    """The VaR interval widened to the lattice's lower law's lower band and upper law's upper
+    band (their crossings of 1 - q), so the grid error of the line quantiles is inside it."""
+    from dataclasses import replace
+
+    p = 1.0 - ms.level
+    low = _invert(a, np.maximum(bounds[0], 0.0), p)
+    high = _invert(a, bounds[1], p)
+    var = ms.var
+    new = Interval(value=var.value,
+                   ci_low=min(var.ci_low, low if low is not None else float(a[0])),
+                   ci_high=max(var.ci_high, high if high is not None else float(a[-1])),
+                   std_error=var.std_error)
+    return replace(ms, var=new)
+
+
 def euler_points(portfolio: Portfolio, *, g: int) -> np.ndarray:
     """Grid points where the Euler terms E[S_i 1{S > a}] are kept (all for a few lines, every
     fourth for more, so the columns stay bounded)."""
@@ -318,7 +340,16 @@ def _dependent_values(name: str, portfolio: Portfolio, points: np.ndarray,
     fn = engine.values(name, portfolio, points, anchors, euler, seed,
                        smallest_tail=1e-9)
     width = 2 * n_pts + euler.size * len(portfolio.lines)
-    return lambda m, rng: fn(m, rng)[:, :width]
+
+    def block(m: int, rng: np.random.Generator) -> np.ndarray:
+        # ... then the lower and upper laws' exceedance at the grid points (GRID of them),
+        # which bound the lattice's grid error of VaR.
+        v = fn(m, rng)
+        g = min(GRID, n_pts)
+        return np.hstack([v[:, :width], v[:, width:width + g],
+                          v[:, width + n_pts:width + n_pts + g]])
+
+    return block
 
 
 def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str,

@@ -48,17 +48,41 @@ class Coupled:
         return np.stack(lows, axis=1), np.stack(ups, axis=1)
 
 
+def draw_mixing(copula: Copula, n: int, rng: np.random.Generator, shrink: float,
+                defensive: float) -> tuple[FloatArray, FloatArray]:
+    """(s, log LR) of the student_t mixing s = sqrt(W / df) when W is drawn from the mixture
+    defensive * chi2(df) + (1 - defensive) * shrink * chi2(df): a chi-square scaled toward 0
+    is a gamma law of the same shape, so the ratio is closed-form and exact. Small W makes
+    every coordinate large at once: the joint tail that gives the t copula its tail dependence.
+    Gaussian copula or shrink = 1: the model itself."""
+    if copula.kind == "gaussian":
+        return np.ones(n), np.zeros(n)
+    assert copula.df is not None
+    df = copula.df
+    w = rng.chisquare(df, size=n)
+    pick = rng.random(n)
+    if shrink >= 1.0:
+        return np.sqrt(w / df), np.zeros(n)
+    w = np.where(pick >= defensive, w * shrink, w)
+    k = 0.5 * df
+    log_g_over_f = -k * np.log(shrink) - w * (0.5 / shrink - 0.5)
+    log_lr = -np.logaddexp(np.log(defensive), np.log1p(-defensive) + log_g_over_f)
+    return np.sqrt(w / df), log_lr
+
+
 @dataclass(frozen=True)
 class CoupledEstimator:
     model: Coupled
     mixture: ShiftMixture
+    shrink: float = 1.0  # scale of the student_t chi-square under the proposal
 
     def values(self, n: int, rng: np.random.Generator, a: FloatArray,
                euler: IntArray) -> FloatArray:
         m = self.model.copula.dim
         g = self.mixture.sample(n, rng, m)
-        scale = self.model.copula.mixing(n, rng)
-        w = np.exp(self.mixture.log_ratio(g))
+        scale, log_w = draw_mixing(self.model.copula, n, rng, self.shrink,
+                                   self.mixture.defensive)
+        w = np.exp(self.mixture.log_ratio(g) + log_w)
         lo, up = self.model.losses(g, scale)
         s_lo, s_up = lo.sum(axis=1), up.sum(axis=1)
         finite = np.isfinite(up)
@@ -78,26 +102,36 @@ class CoupledEstimator:
         return np.hstack(cols)
 
 
-def cross_entropy_shift(model: Coupled, x: float, seed_rng: np.random.Generator) -> FloatArray:
-    """A mean shift of g toward {S > x} by the cross-entropy method (levels rising to x)."""
+def cross_entropy_shift(model: Coupled, x: float, seed_rng: np.random.Generator
+                        ) -> tuple[FloatArray, float]:
+    """A mean shift of g (and, for student_t, a scale of the chi-square) toward {S > x} by
+    the cross-entropy method with levels rising to x: the weighted mean of g over the elite,
+    and the gamma scale mean(W) / shape over it (the weighted maximum-likelihood updates)."""
     m = model.copula.dim
     shift = np.zeros(m)
+    shrink = 1.0
+    t_copula = model.copula.kind == "student_t"
     for _ in range(CE_ROUNDS):
         mix = ShiftMixture(shift[None, :], defensive=0.0) if np.any(shift) else ShiftMixture(
             np.zeros((0, m)))
         g = mix.sample(CE_SAMPLES, seed_rng, m)
-        scale = model.copula.mixing(CE_SAMPLES, seed_rng)
-        w = np.exp(mix.log_ratio(g))
+        scale, log_w = draw_mixing(model.copula, CE_SAMPLES, seed_rng, shrink, 1e-3)
+        w = np.exp(mix.log_ratio(g) + log_w)
         lo, up = model.losses(g, scale)
         s = np.where(np.isfinite(up), 0.5 * (lo + up), lo).sum(axis=1)
         level = min(x, float(np.quantile(s, 1.0 - CE_ELITE)))
         elite = s >= level
         if not elite.any() or w[elite].sum() <= 0:
             break
-        shift = (w[elite, None] * g[elite]).sum(axis=0) / w[elite].sum()
+        total = w[elite].sum()
+        shift = (w[elite, None] * g[elite]).sum(axis=0) / total
+        if t_copula:
+            assert model.copula.df is not None
+            w_elite = scale[elite] ** 2 * model.copula.df  # W = df s^2
+            shrink = float(np.clip((w[elite] @ w_elite) / total / model.copula.df, 1e-3, 1.0))
         if level >= x:
             break
-    return shift
+    return shift, shrink
 
 
 def shifted(model: Coupled, anchors: Sequence[float], seed: int) -> CoupledEstimator:
@@ -107,10 +141,13 @@ def shifted(model: Coupled, anchors: Sequence[float], seed: int) -> CoupledEstim
     points = sorted(set(float(v) for v in anchors))
     if len(points) > 3:
         points = [points[0], points[len(points) // 2], points[-1]]
-    shifts = [cross_entropy_shift(model, x, block_rng(seed, 1, 7 << 20, i))
-              for i, x in enumerate(points)]
-    shifts = [s for s in shifts if np.all(np.isfinite(s)) and np.linalg.norm(s) > 0]
-    return CoupledEstimator(model, ShiftMixture(np.array(shifts).reshape(-1, model.copula.dim)))
+    found = [cross_entropy_shift(model, x, block_rng(seed, 1, 7 << 20, i))
+             for i, x in enumerate(points)]
+    shifts = [s for s, _ in found if np.all(np.isfinite(s)) and np.linalg.norm(s) > 0]
+    # One chi-square scale for the mixture: the smallest (the farthest anchor's).
+    shrink = min(c for _, c in found)
+    return CoupledEstimator(model, ShiftMixture(np.array(shifts).reshape(-1, model.copula.dim)),
+                            shrink)
 
 
 def crude(model: Coupled) -> CoupledEstimator:

@@ -43,12 +43,15 @@ def candidates(portfolio: Portfolio, *, measures: bool) -> list[str]:
     return ["mean_shift", "crude"]
 
 
-def _quantiles(portfolio: Portfolio, smallest: float) -> tuple[LineQuantile, ...]:
-    return tuple(line_quantiles(portfolio, smallest))
+def _quantiles(portfolio: Portfolio, smallest: float, top: float | None
+               ) -> tuple[LineQuantile, ...]:
+    return tuple(line_quantiles(portfolio, smallest, top))
 
 
 def values(name: str, portfolio: Portfolio, a: FloatArray, anchors: Sequence[float],
-           euler: IntArray, seed: int, smallest_tail: float = 1e-12) -> Values:
+           euler: IntArray, seed: int, smallest_tail: float = 1e-12,
+           top: float | None = None) -> Values:
+    """top: set when only exceedance columns matter (see marginals.line_quantiles)."""
     """The block function of method `name` in the layout above."""
     if name not in DEPENDENT_METHODS:
         raise MethodError("method", f"{name} does not apply to a dependent portfolio; use one "
@@ -60,7 +63,7 @@ def values(name: str, portfolio: Portfolio, a: FloatArray, anchors: Sequence[flo
         return _amount_values(name, amounts, a, anchors, euler, seed)
     cop = portfolio.dependence
     assert cop is not None
-    model = coupled.Coupled(cop, _quantiles(portfolio, smallest_tail))
+    model = coupled.Coupled(cop, _quantiles(portfolio, smallest_tail, top))
     est = coupled.crude(model) if name == "crude" else coupled.shifted(model, anchors, seed)
     m = cop.dim
     e = euler.size

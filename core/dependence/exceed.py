@@ -35,11 +35,14 @@ SHIFTED = ("conditional_is", "mean_shift")
 def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int) -> list[Group]:
     parts = [[i] for i in range(x.size)] if name in SHIFTED else [list(range(x.size))]
     tail = 1e-12
+    # Only exceedance columns are used here: lattices need to reach just past the largest
+    # threshold (a line beyond it exceeds every threshold in both bounds).
+    top = 1.05 * float(np.max(x)) if float(np.min(x)) > 0 else None
     out = []
     for idx in parts:
         pts = x[idx]
         fn = engine.values(name, portfolio, pts, list(pts), np.zeros(0, np.int64), seed,
-                           smallest_tail=tail)
+                           smallest_tail=tail, top=top)
         g = pts.size
 
         def block(n: int, rng: np.random.Generator, fn: engine.Values = fn,

@@ -26,9 +26,11 @@ from core.portfolio import Line, Portfolio
 
 FloatArray = npt.NDArray[np.float64]
 CELLS = 4096
-# Nested lattices with tops T, T/4, T/16, T/64: each bound is valid, so the tightest of them is
-# kept; the bound width n h stays a small share of the quantile at every level.
-NESTING = (1.0, 1.0 / 4.0, 1.0 / 16.0, 1.0 / 64.0)
+# Nested lattices with tops T, T/8, T/64, ... down to the line's mean: each bound is valid, so
+# the tightest of them is kept, and the bound width (about E[N] h) stays a small share of the
+# quantile at every level.
+NESTING_RATIO = 8.0
+MAX_LEVELS = 6
 
 
 @dataclass(frozen=True)
@@ -85,9 +87,28 @@ def _lattice_quantile(survival: FloatArray, span: float, ubar: FloatArray,
     return np.where(beyond, fill, out)
 
 
-def line_quantiles(portfolio: Portfolio, smallest_tail: float) -> list[LineQuantile]:
+_CACHE: list[tuple[Portfolio, tuple[float, float | None], list[LineQuantile]]] = []
+
+
+def line_quantiles(portfolio: Portfolio, smallest_tail: float, top: float | None = None
+                   ) -> list[LineQuantile]:
     """One quantile object per line; lattices reach where each line's upper-law tail is below
-    1e-3 * smallest_tail (so beyond-the-top draws are negligible for the request)."""
+    1e-3 * smallest_tail (so beyond-the-top draws are negligible for the request), or only to
+    `top` when every figure asked for is an exceedance of a point below it (a line beyond
+    `top` then exceeds every such point, in both bounds). The last few are kept: the pilot
+    and the main run of one request share them."""
+    key = (smallest_tail, top)
+    for cached, k, value in _CACHE:
+        if cached is portfolio and k == key:
+            return value
+    out = _build(portfolio, smallest_tail, top)
+    _CACHE.append((portfolio, key, out))
+    del _CACHE[:-4]
+    return out
+
+
+def _build(portfolio: Portfolio, smallest_tail: float, top_at: float | None
+           ) -> list[LineQuantile]:
     from core.discretise import Grid
     from core.recursion import aggregate
 
@@ -98,9 +119,13 @@ def line_quantiles(portfolio: Portfolio, smallest_tail: float) -> list[LineQuant
             continue
         single = Portfolio(lines=[line])
         top = _lattice_top(line, 1e-3 * smallest_tail)
+        if top_at is not None:
+            top = min(top, top_at)
         lows, ups, spans = [], [], []
-        for share in NESTING:
-            grid = Grid.with_top(top=top * share, cells=CELLS)
+        tops = [top / NESTING_RATIO**k for k in range(MAX_LEVELS)]
+        tops = [t for t in tops if t >= line.mean] or [top]
+        for level_top in tops:
+            grid = Grid.with_top(top=level_top, cells=CELLS)
             # Panjer's recursion (exact_tail=False): the survival is summed from the pmf,
             # whose entries keep their relative accuracy far below 1e-6.
             lows.append(aggregate(single, grid, "down", exact_tail=False).survival())

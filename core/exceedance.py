@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy.stats import beta
@@ -13,7 +14,11 @@ from core.diagnostics import ContributionStats
 from core.errors import ParameterError
 from core.estimators import select
 from core.estimators.base import Group
+from core.invariants import check_monotone, check_probability
 from core.portfolio import Portfolio
+
+if TYPE_CHECKING:
+    from core.credit.model import CreditModel
 from core.precision import GroupRun, Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.sampling import block_size
@@ -91,7 +96,9 @@ def _run(
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(group.indices):
-            out[i] = _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col])
+            # Violations of the invariants become flags here, so that auto retries them.
+            out[i] = check_probability(
+                _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col]))[0]
     return out, stops
 
 
@@ -153,10 +160,18 @@ def _recursion(
 
 
 def exceedance(
-    portfolio: Portfolio, thresholds: Sequence[float], *, method: str = "auto",
+    portfolio: Portfolio | CreditModel, thresholds: Sequence[float], *, method: str = "auto",
     precision: Precision | None = None, seed: int | None = None,
 ) -> ExceedanceResult:
-    """Estimate P(S > x) for every x in `thresholds`, with intervals and diagnostics."""
+    """Estimate P(S > x) for every x in `thresholds`, with intervals and diagnostics.
+    A credit portfolio (core.credit.CreditModel) goes to the credit estimators."""
+    from core.credit.model import CreditModel
+
+    if isinstance(portfolio, CreditModel):
+        from core.credit.exceedance import credit_exceedance
+
+        return credit_exceedance(portfolio, thresholds, method=method, precision=precision,
+                                 seed=seed)
     start = time.monotonic()
     x = check_thresholds(thresholds)
     seed = check_seed(seed)
@@ -191,10 +206,10 @@ def exceedance(
                     found[i] = more[i]
                     reason += f"; threshold {x[i]:g} re-estimated by {trial.name} after a flag"
             stops += more_stops
-    estimates = [found[i] for i in range(x.size)]
+    estimates, notes = check_monotone([found[i] for i in range(x.size)], x.tolist())
     order = ("time_limit", "max_samples", "samples", "relative_error")
     stopped = next(s for s in order if s in stops)
-    warnings = _warnings(estimates)
+    warnings = _warnings(estimates) + notes
     if stopped == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     used = sorted({e.method for e in estimates})

@@ -13,9 +13,10 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy import stats
@@ -26,7 +27,11 @@ from core.estimators import select
 from core.estimators.base import Group, work_per_sample
 from core.exceedance import Z95, check_seed
 from core.functionals import sampler
+from core.invariants import check_tail
 from core.portfolio import Portfolio
+
+if TYPE_CHECKING:
+    from core.credit.model import CreditModel
 from core.precision import Precision, run_group
 from core.results import Diagnostics
 from core.sampling import PILOT, block_rng, block_size
@@ -210,14 +215,21 @@ def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> li
 
 
 def tail_estimates(
-    portfolio: Portfolio, *, levels: Sequence[float] = (), layers: Sequence[Layer] = (),
-    losses: Sequence[float] = (), method: str = "auto", precision: Precision | None = None,
-    seed: int | None = None,
+    portfolio: Portfolio | CreditModel, *, levels: Sequence[float] = (),
+    layers: Sequence[Layer] = (), losses: Sequence[float] = (), method: str = "auto",
+    precision: Precision | None = None, seed: int | None = None,
 ) -> TailResult:
     """VaR and TVaR at `levels`, `layers` losses and P(S > loss) for `losses`, from one
     sample set. With `auto`, a result with a figure flagged unreliable is redone with the
     next candidate (at most one per estimator family), and the first fully reliable one is
     kept; when none is, the first is returned with its flags."""
+    from core.credit.model import CreditModel
+
+    if isinstance(portfolio, CreditModel):
+        from core.credit.measures import credit_tail
+
+        return credit_tail(portfolio, levels=levels, layers=layers, losses=losses,
+                           method=method, precision=precision, seed=seed)
     start = time.monotonic()
     seed = check_seed(seed)
     precision = precision or Precision()
@@ -290,6 +302,8 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
                                        portfolio) for ms in measures]
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
+    measures, layer_out, notes = check_tail(measures, layer_out)
+    warnings += notes
     if run.stopped_by == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     for m in measures:
@@ -372,8 +386,7 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     """Main run: the grid's exceedance and stop-loss columns, then per layer its loss,
     attachment and exhaustion columns, then P(S > loss) per loss."""
     n_layers = len(layers)
-    extra = [ly.attachment for ly in layers] + [
-        ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
+    extra = point_columns(layers, losses)
     points = np.concatenate([a, np.asarray(extra, dtype=float)])
     if portfolio.dependence is not None:
         values = _dependent_values(name, portfolio, points, anchors, seed,
@@ -381,6 +394,32 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     else:
         values = sampler(name, portfolio, points, anchors, seed)
     g, e = a.size, len(extra)
+    block = layout_block(values, g, layers, losses)
+
+    group = Group((0,), block, work_per_sample(portfolio.expected_claims, 2 * (g + e)), name)
+    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    error_of = _var_error(q, a) if q.size else _layer_error(g, n_layers)
+    run = run_group(group, block_size(portfolio), precision, seed,
+                    _STREAM + select.METHOD_STREAM[name], deadline, error_of=error_of)
+    return _Curves(a, run.stats), run
+
+
+def point_columns(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:
+    """The points beyond the grid whose exceedance and stop loss a run needs: every layer's
+    attachment, then its exhaustion point, then each loss."""
+    return [ly.attachment for ly in layers] + [
+        ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
+
+
+def layout_block(
+    values: Callable[[int, np.random.Generator], np.ndarray], g: int,
+    layers: Sequence[Layer], losses: Sequence[float],
+) -> Callable[[int, np.random.Generator], np.ndarray]:
+    """From per-sample [exceedance | stop loss] at the grid and `point_columns` to the columns
+    _Curves reads: the grid's exceedance and stop loss, then per layer its loss, attachment
+    and exhaustion, then P(S > loss) per loss."""
+    n_layers = len(layers)
+    e = 2 * n_layers + len(losses)
 
     def block(m: int, rng: np.random.Generator) -> np.ndarray:
         v = values(m, rng)
@@ -392,16 +431,11 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
                      exceed[:, g + n_layers + i:g + n_layers + i + 1]]
         if len(losses):
             cols.append(exceed[:, g + 2 * n_layers:])
-        cols.append(v[:, 2 * (g + e):])  # Euler terms of a dependent portfolio (else empty)
+        cols.append(v[:, 2 * (g + e):])  # any further columns (e.g. Euler terms), kept last
         # Differences of monotone per-sample values are >= 0 up to rounding.
         return np.maximum(np.hstack(cols), 0.0)
 
-    group = Group((0,), block, work_per_sample(portfolio.expected_claims, 2 * (g + e)), name)
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    error_of = _var_error(q, a) if q.size else _layer_error(g, n_layers)
-    run = run_group(group, block_size(portfolio), precision, seed,
-                    _STREAM + select.METHOD_STREAM[name], deadline, error_of=error_of)
-    return _Curves(a, run.stats), run
+    return block
 
 
 def _layer_error(g: int, n_layers: int):
@@ -415,7 +449,7 @@ def _layer_error(g: int, n_layers: int):
     return error_of
 
 
-def _measure(curves: _Curves, q: float, portfolio: Portfolio) -> MeasureEstimate:
+def _measure(curves: _Curves, q: float, portfolio: object = None) -> MeasureEstimate:
     v, lo, hi = curves.var(q)
     a = curves.a
     g = int(np.clip(np.searchsorted(a, v if v is not None else a[0]), 0, a.size - 1))

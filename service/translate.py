@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 import core
+from core.credit import CreditModel
 from core.dependence.copula import Copula
 from core.errors import MethodError, ParameterError, TailgaugeError
 from core.measures import Interval, Layer, LayerEstimate, MeasureEstimate, TailResult
@@ -25,8 +26,9 @@ from core.results import (
     RuinEstimate,
     RuinResult,
 )
+from service import credit_translate
 from service.schemas.common import ComputationOut, DiagnosticsOut, LineSpec, PortfolioSpec
-from service.schemas.dependence import ContributionOut
+from service.schemas.credit import ContributionOut
 from service.schemas.exceedance import ExceedanceEstimateOut, ExceedanceResponse
 from service.schemas.layers import LayerOut, LayerSpec, LayersResponse
 from service.schemas.risk_measures import (
@@ -95,7 +97,9 @@ def _line(spec: LineSpec, path: str) -> core.Line:
         )
 
 
-def portfolio(spec: PortfolioSpec) -> core.Portfolio:
+def portfolio(spec: PortfolioSpec) -> core.Portfolio | CreditModel:
+    if credit_translate.has_obligors(spec):
+        return credit_translate.credit_model(spec)
     lines = [_line(line, f"portfolio.lines[{i}]") for i, line in enumerate(spec.lines)]
     dep = None
     if spec.dependence is not None:
@@ -103,6 +107,9 @@ def portfolio(spec: PortfolioSpec) -> core.Portfolio:
         from core.dependence.copula import check_correlation
 
         d = spec.dependence
+        if d.correlation is None:
+            raise ParameterError("portfolio.dependence.correlation",
+                                 "is required for claim lines: one row and column per line")
         check_correlation(d.correlation, size=len(lines))
         dep = Copula(kind=d.copula, correlation=np.asarray(d.correlation, dtype=float),
                      df=d.df)
@@ -118,9 +125,11 @@ def layers(specs: list[LayerSpec]) -> list[Layer]:
     return out
 
 
-def check_finite_means(model: core.Portfolio, figure: str) -> None:
+def check_finite_means(model: core.Portfolio | CreditModel, figure: str) -> None:
     """Refuse a line whose paid claims have an infinite mean (e.g. Pareto alpha <= 1 with no
     per-claim limit) when ``figure`` needs E[S]-type integrals to exist."""
+    if isinstance(model, CreditModel):
+        return  # a credit loss is bounded by the sum of the exposures
     for k, line in enumerate(model.lines):
         if line.paid_count.mean > 0 and not math.isfinite(line.paid_severity.mean):
             raise MethodError(
@@ -149,6 +158,7 @@ def diagnostics(d: Diagnostics) -> DiagnosticsOut:
         batch_ratio=finite_or_none(d.batch_ratio),
         reliable=bool(d.reliable),
         reason=str(d.reason),
+        exact=bool(d.exact),
     )
 
 
@@ -231,11 +241,7 @@ def _reciprocal(p: float | None) -> float | None:
 
 
 def _measure(m: MeasureEstimate) -> MeasureOut:
-    contributions = [ContributionOut(label=c.label, tvar_contribution=c.tvar_contribution,
-                                     ci_low=c.ci_low, ci_high=c.ci_high)
-                     for c in m.contributions] or None
     return MeasureOut(
-        contributions=contributions,
         level=float(m.level),
         var=finite_or_none(m.var.value),
         var_ci_low=finite_or_none(m.var.ci_low),
@@ -245,6 +251,10 @@ def _measure(m: MeasureEstimate) -> MeasureOut:
         tvar_ci_high=finite_or_none(m.tvar.ci_high),
         tvar_std_error=finite_or_none(m.tvar.std_error),
         diagnostics=diagnostics(m.diagnostics),
+        contributions=[ContributionOut(
+            label=c.label, tvar_contribution=finite_or_none(c.tvar_contribution),
+            ci_low=finite_or_none(c.ci_low), ci_high=finite_or_none(c.ci_high))
+            for c in m.contributions],
     )
 
 

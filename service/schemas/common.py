@@ -7,11 +7,9 @@ choosing; thresholds, retentions, limits and severity scales must all use the sa
 
 from __future__ import annotations
 
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
-
-from service.schemas.dependence import DependenceSpec
 
 # JavaScript clients hold integers exactly only up to 2**53 - 1; seeds stay inside that range.
 MAX_JSON_SAFE_INT = 2**53 - 1
@@ -188,10 +186,23 @@ class LineSpec(RequestModel):
         description="Per-claim limit in money units (0 < limit <= 10^18); null = unlimited.",
     )
 
+    @model_validator(mode="wrap")
+    @classmethod
+    def _obligor_line(cls, data: Any, handler: Any) -> Any:
+        # A line of obligors ({label?, obligors}) is a CreditLineSpec; delegating here keeps
+        # a claim line's error paths free of union-member names.
+        if isinstance(data, dict) and "obligors" in data:
+            from service.schemas.credit import CreditLineSpec
+
+            return CreditLineSpec.model_validate(data)
+        return handler(data)
+
     @model_validator(mode="after")
     def _layer_can_pay(self) -> LineSpec:
         # A retention at or above the largest possible claim makes the line pay nothing,
         # which is almost surely a units mistake rather than an intended model.
+        if not isinstance(self, LineSpec):  # a line of obligors, validated on its own
+            return self
         top = severity_upper_end(self.severity)
         if top is not None and self.retention is not None and self.retention >= top:
             raise ValueError(
@@ -205,27 +216,37 @@ class PortfolioSpec(RequestModel):
     lines: list[LineSpec] = Field(
         min_length=1,
         description="Lines of business (independent unless `dependence` is given); the "
-        "portfolio loss S is the sum of their per-period aggregate losses.",
+        "portfolio loss S is the sum of their per-period aggregate losses. A line may instead "
+        "be a line of obligors {label?, obligors: group | [group...]} (see "
+        "service/schemas/credit.py): then every line must be one, on portfolio.factors.",
     )
+    factors: FactorsSpec | None = Field(
+        default=None, description="Systematic factors of the obligor groups.")
     dependence: DependenceSpec | None = Field(
-        default=None,
-        description="Optional copula coupling the lines' period losses; absent = independent.",
-    )
+        default=None, description="Copula coupling the lines' period losses (claim lines: "
+        "correlation required; absent = independent), or the copula of the obligors' factor "
+        "model (gaussian when absent).")
 
 
 # --- method and precision -------------------------------------------------------------------
 
 Method = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion"]
-PortfolioMethod = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion",
-                          "mean_shift", "radial"]
+# Portfolio requests also take the dependent-portfolio and credit estimators (ruin keeps
+# Method).
+PortfolioMethod = Literal[
+    "auto", "crude", "tilted", "conditional", "conditional_is", "recursion", "mean_shift",
+    "radial", "glasserman_li"
+]
 
 METHOD_DESCRIPTION = (
     "Estimator: auto (chosen from the model's tails and a short pilot), crude (plain Monte "
     "Carlo), tilted (exponential tilting, light tails), conditional (Asmussen-Kroese "
     "conditional Monte Carlo, heavy tails), conditional_is (conditional Monte Carlo over which "
     "claim is largest), recursion (deterministic discretised recursion with lower and upper "
-    "bounds); for a dependent portfolio also mean_shift (importance sampling on the copula's "
-    "normals) and radial (Kortschak-Hashorva, correlated lognormal amounts; exceedance only)."
+    "bounds), glasserman_li (two-step importance sampling of Glasserman and Li 2005, for "
+    "obligor groups); for a dependent portfolio also mean_shift (importance sampling on the "
+    "copula's normals) and radial (Kortschak-Hashorva, correlated lognormal amounts; "
+    "exceedance only)."
 )
 
 
@@ -308,6 +329,11 @@ class DiagnosticsOut(BaseModel):
     )
     reliable: bool = Field(description="Whether the error bar of this estimate can be trusted.")
     reason: str = Field(description="Why the estimate is (or is not) considered reliable.")
+    exact: bool = Field(
+        default=False,
+        description="True only for a figure known in closed form (a certainty, or a term the "
+        "model fixes); a Monte Carlo figure is never exact, even when its interval is narrow.",
+    )
 
 
 class ComputationOut(BaseModel):
@@ -330,3 +356,9 @@ class ComputationOut(BaseModel):
         "(e.g. a Pareto line with alpha <= 2)."
     )
     warnings: list[str] = Field(description="Things the caller should know about these figures.")
+
+
+from service.schemas.credit import FactorsSpec  # noqa: E402
+from service.schemas.dependence import DependenceSpec  # noqa: E402
+
+PortfolioSpec.model_rebuild()

@@ -9,7 +9,7 @@ from pydantic import BaseModel, Field, ValidationInfo, field_validator
 from pydantic_core import PydanticCustomError
 
 from service.schemas.common import ComputationOut, DiagnosticsOut, Money, PortfolioRequest
-from service.schemas.dependence import ContributionOut
+from service.schemas.credit import ContributionOut
 
 # 1 - 1/T must stay distinguishable from 1 in double precision (about 1e-16 apart).
 RETURN_PERIOD_MAX = 1e12
@@ -89,10 +89,11 @@ class MeasureOut(BaseModel):
     diagnostics: DiagnosticsOut = Field(
         description="How far the error bar of the exceedance estimate at VaR_q can be trusted."
     )
-    contributions: list[ContributionOut] | None = Field(
-        default=None,
-        description="Dependent portfolios only: each line's Euler allocation of TVaR_q "
-        "(E[S_i | S > VaR_q], from the same samples; the lines add up to tvar).",
+    contributions: list[ContributionOut] = Field(
+        default_factory=list,
+        description="Euler allocation of TVaR_q to the lines of a dependent portfolio "
+        "(E[S_i | S > VaR_q] from the same samples) or to the obligor groups; they sum to "
+        "TVaR_q. Empty for independent claim lines.",
     )
 
 

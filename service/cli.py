@@ -44,6 +44,8 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("batch", type=Path, metavar="BATCH.json")
     run.add_argument("--out", type=Path, required=True, metavar="RESULTS.json",
                      help="where to write the results (the body of GET /v1/runs/{run_id})")
+    run.add_argument("--report", type=Path, metavar="REPORT.html",
+                     help="also write the run report: one self-contained HTML page")
     run.add_argument("--workers", type=int, help="size of the computation pool")
     return parser
 
@@ -144,18 +146,22 @@ def _rejected(path: Path, detail: list[dict[str, Any]], stream: TextIO) -> None:
         print(f"  {_where(loc)}: {entry['msg']}", file=stream)
 
 
-def _write_atomically(path: Path, body: dict[str, Any]) -> None:
+def _write_atomically(path: Path, body: dict[str, Any] | str) -> None:
     # A reader (the next job in the schedule) sees the old file or the whole new one.
     path.parent.mkdir(parents=True, exist_ok=True)
     handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.")
     with os.fdopen(handle, "w", encoding="utf-8") as out:
-        json.dump(body, out, indent=2, allow_nan=False)
-        out.write("\n")
+        if isinstance(body, str):
+            out.write(body)
+        else:
+            json.dump(body, out, indent=2, allow_nan=False)
+            out.write("\n")
     os.replace(temporary, path)
 
 
 async def run_batch_file(
-    batch_path: Path, out_path: Path, *, settings: Settings, stream: TextIO
+    batch_path: Path, out_path: Path, *, settings: Settings, stream: TextIO,
+    report_path: Path | None = None,
 ) -> int:
     """``tailgauge run``: compute the batch, write the results, return the exit status."""
     from service.worker import BatchRejected, run_locally
@@ -171,6 +177,10 @@ async def run_batch_file(
         _rejected(batch_path, exc.detail, stream)
         return RUN_UNUSABLE
     _write_atomically(out_path, view.model_dump(mode="json"))
+    if report_path is not None:
+        from service.report import build_report
+
+        _write_atomically(report_path, build_report(view, batch))
     report.finish(view, out_path)
     return RUN_OK if view.status == "done" else RUN_ITEM_FAILED
 
@@ -184,7 +194,7 @@ def _run(args: argparse.Namespace) -> int:
         return RUN_UNUSABLE
     try:
         return asyncio.run(run_batch_file(args.batch, args.out, settings=settings,
-                                          stream=sys.stderr))
+                                          stream=sys.stderr, report_path=args.report))
     except KeyboardInterrupt:
         print("\ntailgauge run: interrupted; no results written", file=sys.stderr)
         return 130

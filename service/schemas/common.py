@@ -260,23 +260,27 @@ class LineSpec(RequestModel):
 class PortfolioSpec(RequestModel):
     lines: list[LineSpec] = Field(
         min_length=1,
-        description="Independent lines of business; the portfolio loss S is the sum of their "
-        "per-period aggregate losses. A line may instead be a line of obligors "
-        "{label?, obligors: group | [group...]} (see service/schemas/credit.py): then every "
-        "line must be one, on portfolio.factors.",
+        description="Lines of business (independent unless `dependence` is given); the "
+        "portfolio loss S is the sum of their per-period aggregate losses. A line may instead "
+        "be a line of obligors {label?, obligors: group | [group...]} (see "
+        "service/schemas/credit.py): then every line must be one, on portfolio.factors.",
     )
     factors: FactorsSpec | None = Field(
         default=None, description="Systematic factors of the obligor groups.")
     dependence: DependenceSpec | None = Field(
-        default=None, description="Copula of the factor model (gaussian when absent).")
+        default=None, description="Copula coupling the lines' period losses (claim lines: "
+        "correlation required; absent = independent), or the copula of the obligors' factor "
+        "model (gaussian when absent).")
 
 
 # --- method and precision -------------------------------------------------------------------
 
 Method = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion"]
-# Portfolio requests also take the credit estimator (ruin keeps Method).
+# Portfolio requests also take the dependent-portfolio and credit estimators (ruin keeps
+# Method).
 PortfolioMethod = Literal[
-    "auto", "crude", "tilted", "conditional", "conditional_is", "recursion", "glasserman_li"
+    "auto", "crude", "tilted", "conditional", "conditional_is", "recursion", "mean_shift",
+    "radial", "glasserman_li"
 ]
 
 METHOD_DESCRIPTION = (
@@ -285,7 +289,9 @@ METHOD_DESCRIPTION = (
     "conditional Monte Carlo, heavy tails), conditional_is (conditional Monte Carlo over which "
     "claim is largest), recursion (deterministic discretised recursion with lower and upper "
     "bounds), glasserman_li (two-step importance sampling of Glasserman and Li 2005, for "
-    "obligor groups)."
+    "obligor groups); for a dependent portfolio also mean_shift (importance sampling on the "
+    "copula's normals) and radial (Kortschak-Hashorva, correlated lognormal amounts; "
+    "exceedance only)."
 )
 
 
@@ -397,6 +403,7 @@ class ComputationOut(BaseModel):
     warnings: list[str] = Field(description="Things the caller should know about these figures.")
 
 
-from service.schemas.credit import DependenceSpec, FactorsSpec  # noqa: E402
+from service.schemas.credit import FactorsSpec  # noqa: E402
+from service.schemas.dependence import DependenceSpec  # noqa: E402
 
 PortfolioSpec.model_rebuild()

@@ -102,8 +102,9 @@ class MeasureOut(BaseModel):
     )
     contributions: list[ContributionOut] = Field(
         default_factory=list,
-        description="Euler allocation of TVaR_q to the obligor groups (they sum to TVaR_q); "
-        "empty for a portfolio of claim lines.",
+        description="Euler allocation of TVaR_q to the lines of a dependent portfolio "
+        "(E[S_i | S > VaR_q] from the same samples) or to the obligor groups; they sum to "
+        "TVaR_q. Empty for independent claim lines.",
     )
 
 

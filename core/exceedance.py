@@ -73,6 +73,10 @@ def exceedance(
     x = check_thresholds(thresholds)
     seed = check_seed(seed)
     precision = precision or Precision()
+    if portfolio.dependence is not None:
+        from core.dependence.exceed import dependent_exceedance
+
+        return dependent_exceedance(portfolio, x, method, precision, seed, start)
     if method == registry.AUTO:
         trials, reason = select.choose(portfolio, x, seed)
     else:

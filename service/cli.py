@@ -51,7 +51,9 @@ def _parser() -> argparse.ArgumentParser:
 def _serve(args: argparse.Namespace) -> int:
     import uvicorn
 
+    from service import datadir
     from service.app import create_app
+    from service.auth import AuthConfigError, load_auth
 
     given = {"host": args.host, "port": args.port, "data_dir": args.data_dir,
              "workers": args.workers}
@@ -60,7 +62,18 @@ def _serve(args: argparse.Namespace) -> int:
     except ValidationError as exc:
         print(f"tailgauge serve: invalid settings:\n{exc}", file=sys.stderr)
         return 2
-    uvicorn.run(create_app(settings), host=settings.host, port=settings.port)
+    # Every start-up problem is one line and exit 2, before the server listens.
+    try:
+        load_auth(settings)
+        lock = datadir.check(settings)  # held while the server runs: one server per data dir
+    except (AuthConfigError, datadir.DataDirError) as exc:
+        print(f"tailgauge serve: {exc}", file=sys.stderr)
+        return 2
+    try:
+        uvicorn.run(create_app(settings, exit_on_start_failure=True), host=settings.host,
+                    port=settings.port)
+    finally:
+        lock.release()
     return 0
 
 

@@ -1,0 +1,186 @@
+"""The asynchronous client: the same methods as Client, awaited."""
+
+from __future__ import annotations
+
+import asyncio
+import sys
+import time
+from collections.abc import AsyncIterator, Callable, Mapping, Sequence
+from typing import Any, TypeVar
+
+import httpx
+
+from client import _calls as calls
+from client._calls import TERMINAL, Call, SubmittedRun
+from client._errors import RunWaitTimeout, TransportFailed
+from client._retry import RETRYABLE_TRANSPORT, RetryPolicy, retry_after_seconds
+from client._tables import (
+    ExceedanceResult,
+    LayersResult,
+    RiskMeasuresResult,
+    RuinResult,
+    RunResult,
+)
+from service.schemas.runs import RunBatchIn, RunSummary
+
+__all__ = ["AsyncClient"]
+
+T = TypeVar("T")
+Progress = Callable[[RunSummary], None]
+DEFAULT_URL = "http://127.0.0.1:8000"
+
+
+class AsyncClient:
+    """Calls a tailgauge server from asyncio code; the same methods as ``Client``, awaited.
+    Keyword arguments of the figure methods are the request fields of the matching endpoint
+    (``portfolio``, ``thresholds``, ``method``, ...), as dicts or as the service's schema
+    models; they are validated before sending.
+
+    ``timeout_s`` bounds every HTTP call (a method's own ``timeout_s`` overrides it);
+    ``retry`` says which failures are tried again (connection errors and 503, never 4xx);
+    ``token`` is sent as a bearer token.
+    """
+
+    def __init__(
+        self, base_url: str = DEFAULT_URL, *, token: str | None = None,
+        timeout_s: float = 300.0, retry: RetryPolicy | None = None,
+        transport: httpx.AsyncBaseTransport | None = None,
+    ) -> None:
+        headers = {"Authorization": f"Bearer {token}"} if token else {}
+        self._http = httpx.AsyncClient(base_url=base_url, headers=headers, timeout=timeout_s,
+                                  transport=transport)
+        self.retry = retry if retry is not None else RetryPolicy()
+
+    async def __aenter__(self) -> AsyncClient:
+        return self
+
+    async def __aexit__(self, *_: object) -> None:
+        await self.aclose()
+
+    async def aclose(self) -> None:
+        await self._http.aclose()
+
+    async def _run(self, call: Call[T], timeout_s: float | None = None) -> T:
+        timeout = httpx.USE_CLIENT_DEFAULT if timeout_s is None else httpx.Timeout(timeout_s)
+        for attempt in range(self.retry.attempts):
+            last = attempt + 1 == self.retry.attempts
+            try:
+                response = await self._http.request(call.method, call.path, json=call.body,
+                                              params=call.params, headers=call.headers,
+                                              timeout=timeout)
+            except RETRYABLE_TRANSPORT as exc:
+                if last:
+                    raise TransportFailed(f"{call.method} {call.path}: {exc!r}") from exc
+                await asyncio.sleep(self.retry.delay(attempt))
+                continue
+            if response.status_code == 503 and not last:
+                await asyncio.sleep(self.retry.delay(attempt, retry_after_seconds(response)))
+                continue
+            return call.finish(response)
+        raise AssertionError("unreachable")  # the last attempt returns or raises
+
+    # --- figures ------------------------------------------------------------------------
+
+    async def exceedance(self, *, portfolio: Any, thresholds: Sequence[float],
+                         method: str | None = None, precision: Any = None,
+                         seed: int | None = None,
+                         timeout_s: float | None = None) -> ExceedanceResult:
+        """POST /v1/exceedance: P(S > x) for each threshold."""
+        return await self._run(calls.exceedance(portfolio=portfolio, thresholds=thresholds,
+                                          method=method, precision=precision, seed=seed),
+                         timeout_s)
+
+    async def risk_measures(self, *, portfolio: Any, levels: Sequence[float] | None = None,
+                      return_periods: Sequence[float] | None = None,
+                      losses: Sequence[float] | None = None, method: str | None = None,
+                      precision: Any = None, seed: int | None = None,
+                      timeout_s: float | None = None) -> RiskMeasuresResult:
+        """POST /v1/risk-measures: VaR and TVaR by level, losses by return period."""
+        return await self._run(calls.risk_measures(
+            portfolio=portfolio, levels=levels, return_periods=return_periods, losses=losses,
+            method=method, precision=precision, seed=seed), timeout_s)
+
+    async def layers(self, *, portfolio: Any, layers: Sequence[Any], method: str | None = None,
+               precision: Any = None, seed: int | None = None,
+               timeout_s: float | None = None) -> LayersResult:
+        """POST /v1/layers: expected loss and attachment/exhaustion of aggregate layers."""
+        return await self._run(calls.layers(portfolio=portfolio, layers=layers, method=method,
+                                      precision=precision, seed=seed), timeout_s)
+
+    async def ruin(self, *, process: Any, capital: Sequence[float], horizon: float | None = None,
+             target_probability: float | None = None, method: str | None = None,
+             precision: Any = None, seed: int | None = None,
+             timeout_s: float | None = None) -> RuinResult:
+        """POST /v1/ruin: ruin probabilities by initial capital."""
+        return await self._run(calls.ruin(
+            process=process, capital=capital, horizon=horizon,
+            target_probability=target_probability, method=method, precision=precision,
+            seed=seed), timeout_s)
+
+    async def health(self) -> dict[str, Any]:
+        return await self._run(calls.health())
+
+    # --- runs ---------------------------------------------------------------------------
+
+    async def submit_run(self, batch: RunBatchIn | Mapping[str, Any],
+                   idempotency_key: str | None = None) -> SubmittedRun:
+        """POST /v1/runs. Without a key, one is derived from the batch content, so sending
+        the same batch again returns the same run; pass ``fresh_key()`` for a new one."""
+        return await self._run(calls.submit_run(batch, idempotency_key))
+
+    async def get_run(self, run_id: str) -> RunResult:
+        return await self._run(calls.get_run(run_id))
+
+    async def get_run_batch(self, run_id: str) -> RunBatchIn:
+        """The stored batch, seeds included: submit it again to repeat the run."""
+        return await self._run(calls.get_run_batch(run_id))
+
+    async def cancel_run(self, run_id: str) -> RunResult:
+        return await self._run(calls.cancel_run(run_id))
+
+    async def list_runs(self, *, status: str | None = None,
+                        page_size: int = 50) -> AsyncIterator[RunSummary]:
+        """Every run, newest first, fetched page by page."""
+        cursor: str | None = None
+        while True:
+            page = await self._run(calls.list_runs(status, page_size, cursor))
+            for run in page.runs:
+                yield run
+            if page.next_cursor is None:
+                return
+            cursor = page.next_cursor
+
+    async def wait_run(self, run_id: str, *, poll_interval_s: float = 0.5,
+                 timeout_s: float | None = None, progress: Progress | None = None,
+                 progress_bar: bool | None = None) -> RunResult:
+        """Poll until the run is done, failed or cancelled. ``progress`` is called with each
+        new state; a progress line is drawn on stderr when it is a terminal (or when
+        ``progress_bar`` is true)."""
+        bar = sys.stderr.isatty() if progress_bar is None else progress_bar
+        deadline = None if timeout_s is None else time.monotonic() + timeout_s
+        seen = None
+        while True:
+            run = await self.get_run(run_id)
+            state = run.progress.model_dump()
+            if state != seen:
+                seen = state
+                if progress is not None:
+                    progress(run)
+                if bar:
+                    print("\r" + calls.progress_line(run), end="", file=sys.stderr, flush=True)
+            if run.status in TERMINAL:
+                if bar:
+                    print(file=sys.stderr)
+                return run
+            if deadline is not None and time.monotonic() >= deadline:
+                raise RunWaitTimeout(run_id, timeout_s or 0.0, run)
+            await asyncio.sleep(poll_interval_s)
+
+    async def run_batch(self, batch: RunBatchIn | Mapping[str, Any], *,
+                  idempotency_key: str | None = None, poll_interval_s: float = 0.5,
+                  timeout_s: float | None = None, progress: Progress | None = None,
+                  progress_bar: bool | None = None) -> RunResult:
+        """Submit a batch and wait for its results."""
+        submitted = await self.submit_run(batch, idempotency_key)
+        return await self.wait_run(submitted.run_id, poll_interval_s=poll_interval_s,
+                             timeout_s=timeout_s, progress=progress, progress_bar=progress_bar)

@@ -39,8 +39,10 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 OUT = ROOT / "bench" / "out"
 HOST = "127.0.0.1"  # loopback only, by design
-MIX = ("cheap", "cheap", "health", "cheap", "heavy", "cheap", "health", "cheap", "runs",
-       "cheap")  # request i has class MIX[i % 10]
+# Request i has class MIX[i % 10]: 6 cheap, 2 health, 1 heavy, 1 runs in 10 (each class among
+# the first four, so that even the smallest budget sends one of each).
+MIX = ("cheap", "health", "heavy", "runs", "cheap", "cheap", "health", "cheap", "cheap",
+       "cheap")
 LOGNORMAL = {"count": {"kind": "poisson", "mean": 5.0},
              "severity": {"family": "lognormal", "mu": 0.0, "sigma": 1.5}}
 GAMMA = {"count": {"kind": "negative_binomial", "mean": 20.0, "dispersion": 2.0},

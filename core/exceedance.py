@@ -13,6 +13,7 @@ from core.diagnostics import ContributionStats
 from core.errors import ParameterError
 from core.estimators import select
 from core.estimators.base import Group
+from core.invariants import check_monotone, check_probability
 from core.portfolio import Portfolio
 from core.precision import GroupRun, Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
@@ -90,7 +91,9 @@ def _run(
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(group.indices):
-            out[i] = _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col])
+            # Violations of the invariants become flags here, so that auto retries them.
+            out[i] = check_probability(
+                _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col]))[0]
     return out, stops
 
 
@@ -186,10 +189,10 @@ def exceedance(
                     found[i] = more[i]
                     reason += f"; threshold {x[i]:g} re-estimated by {trial.name} after a flag"
             stops += more_stops
-    estimates = [found[i] for i in range(x.size)]
+    estimates, notes = check_monotone([found[i] for i in range(x.size)], x.tolist())
     order = ("time_limit", "max_samples", "samples", "relative_error")
     stopped = next(s for s in order if s in stops)
-    warnings = _warnings(estimates)
+    warnings = _warnings(estimates) + notes
     if stopped == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     used = sorted({e.method for e in estimates})

@@ -26,6 +26,7 @@ from core.estimators import select
 from core.estimators.base import Group, work_per_sample
 from core.exceedance import Z95, check_seed
 from core.functionals import sampler
+from core.invariants import check_tail
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
 from core.results import Diagnostics
@@ -258,6 +259,8 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
     measures = [_measure(curves, float(level), portfolio) for level in q]
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
+    measures, layer_out, notes = check_tail(measures, layer_out)
+    warnings += notes
     if run.stopped_by == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     for m in measures:

@@ -12,6 +12,8 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+import numpy as np
+
 from core.counts import ClaimCount
 from core.errors import ParameterError
 from core.severities import Capped, Excess, Severity
@@ -25,6 +27,39 @@ def _check_finite(name: str, value: float, *, positive: bool, allow_zero: bool) 
         raise ParameterError(name, f"must be {bound}, got {value!r}")
 
 
+# Claims whose interquartile range is below this share of their size are numerically constant:
+# a double holds ~16 digits, so rounding then moves a claim by more than 1e-8 of its own spread
+# and the conditional estimators' "which claim is the largest" partition breaks on ties (a
+# lognormal with sigma 1e-17 draws 1.0 every time and gave exceedance probabilities above 1).
+MIN_RELATIVE_SPREAD = 1e-8
+# Claims below 1e-300 are close to the smallest normal double (2.2e-308) and are drawn as 0 by
+# the samplers; a law that puts more than this much mass there (gamma shape 1e-300) is refused.
+UNDERFLOW = 1e-300
+MAX_UNDERFLOW_MASS = 1e-9
+
+
+def _check_resolvable(sev: Severity) -> None:
+    """Refuse a claim law that double precision cannot sample faithfully (see above)."""
+    q25, q75 = (float(v) for v in sev.ppf(np.array([0.25, 0.75])))
+    size = max(abs(q25), abs(q75))
+    if math.isfinite(size) and size > 0 and (q75 - q25) <= MIN_RELATIVE_SPREAD * size:
+        raise ParameterError(
+            "severity",
+            f"claims are numerically constant (quartiles {q25:.17g} and {q75:.17g}): their "
+            f"spread is below {MIN_RELATIVE_SPREAD:g} of their size, which double precision "
+            "cannot resolve; give a spread of at least that (e.g. lognormal sigma >= 1e-8)",
+        )
+    if sev.support_min >= 0.0:
+        mass = float(sev.cdf(UNDERFLOW))
+        if mass > MAX_UNDERFLOW_MASS:
+            raise ParameterError(
+                "severity",
+                f"a claim falls below {UNDERFLOW:g} with probability {mass:.3g}: such claims "
+                "are rounded to 0 in double precision, so the model cannot be sampled "
+                "faithfully (raise the shape or the scale)",
+            )
+
+
 @dataclass(frozen=True, kw_only=True)
 class Line:
     """One line of business: a claim count law, a severity and an optional per-claim layer."""
@@ -36,6 +71,7 @@ class Line:
     label: str | None = None
 
     def __post_init__(self) -> None:
+        _check_resolvable(self.severity)
         if self.retention is not None:
             _check_finite("retention", self.retention, positive=True, allow_zero=True)
         if self.limit is not None:

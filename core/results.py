@@ -15,6 +15,8 @@ class Diagnostics:
     largest_share: the largest single contribution over the total.
     batch_ratio: spread of batch estimates over independent sub-streams divided by the
         spread the reported standard error predicts (about 1 when healthy).
+    exact: the figure is known in closed form (a certainty, or a term the model fixes): its
+        interval has zero width because there is no error, not because none was seen.
     """
 
     pareto_k: float | None
@@ -23,6 +25,7 @@ class Diagnostics:
     batch_ratio: float | None
     reliable: bool
     reason: str
+    exact: bool = False
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -136,6 +136,7 @@ def diagnostics(d: Diagnostics) -> DiagnosticsOut:
         batch_ratio=finite_or_none(d.batch_ratio),
         reliable=bool(d.reliable),
         reason=str(d.reason),
+        exact=bool(d.exact),
     )
 
 

@@ -29,6 +29,7 @@ import numpy as np
 
 from core.errors import MethodError, ParameterError
 from core.exceedance import check_seed
+from core.invariants import check_probability
 from core.precision import Precision
 from core.results import CapitalForTarget, Diagnostics, RuinEstimate, RuinResult
 from core.ruin import capital, report
@@ -114,13 +115,24 @@ def _choose(ctx: Context, method: str) -> Regime:
     return JumpRegime(ctx)
 
 
+def _checked(estimates: list[RuinEstimate]) -> tuple[list[RuinEstimate], list[str]]:
+    """Every estimate through the invariant checks (core.invariants)."""
+    out, notes = [], []
+    for e in estimates:
+        fixed, more = check_probability(e)
+        out.append(fixed)
+        notes += more
+    return out, notes
+
+
 def _certain(process: SurplusProcess, u: np.ndarray, target: float | None, seed: int,
              start: float) -> RuinResult:
     why = (f"the net profit condition fails (premium rate {process.premium:g} <= claim rate x "
            f"mean claim {process.claim_rate * process.mean_claim:g}): ruin is certain for "
            "every capital")
     diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                       batch_ratio=None, reliable=True, reason=f"exact: {why}")
+                       batch_ratio=None, reliable=True, reason=f"exact: {why}",
+                       exact=True)
     estimates = [
         RuinEstimate(capital=float(v), value=1.0, std_error=0.0, relative_error=0.0, ci_low=1.0,
                      ci_high=1.0, samples=0, hits=0, diagnostics=diag, method="exact",
@@ -193,7 +205,8 @@ def ruin(
     ctx = Context(process, horizon_t, precision, seed, deadline, gamma, constant)
     regime = _choose(ctx, method)
     estimates, stops = regime.estimate(u, 0)
-    warnings = report.warnings_for(estimates)
+    estimates, warnings = _checked(estimates)
+    warnings += report.warnings_for(estimates)
     wanted = None
     if target is not None:
         wanted, more, notes = _for_target(regime, ctx, target)

@@ -299,6 +299,11 @@ class DiagnosticsOut(BaseModel):
     )
     reliable: bool = Field(description="Whether the error bar of this estimate can be trusted.")
     reason: str = Field(description="Why the estimate is (or is not) considered reliable.")
+    exact: bool = Field(
+        default=False,
+        description="True only for a figure known in closed form (a certainty, or a term the "
+        "model fixes); a Monte Carlo figure is never exact, even when its interval is narrow.",
+    )
 
 
 class ComputationOut(BaseModel):

@@ -44,7 +44,9 @@ def test_response_carries_the_contract_fields(client, small_request):
     assert body["engine_version"] == core.ENGINE_VERSION
     for estimate in body["estimates"]:
         assert CONTRACT_ESTIMATE_FIELDS | {"hits"} <= estimate.keys()
-        assert set(estimate["diagnostics"]) == CONTRACT_DIAGNOSTICS_FIELDS
+        # the contract's diagnostics plus the additive `exact` flag (issue 12)
+        assert set(estimate["diagnostics"]) == CONTRACT_DIAGNOSTICS_FIELDS | {"exact"}
+        assert estimate["diagnostics"]["exact"] is False  # Monte Carlo is never exact
     assert [e["threshold"] for e in body["estimates"]] == [5.0, 20.0]
 
 

@@ -17,7 +17,19 @@ from service.errors import install_error_handlers
 from service.examples import load_examples
 from service.executor import ComputePool
 from service.metrics import Metrics, MetricsMiddleware, route_templates
-from service.routes import exceedance, health, layers, metrics, risk_measures, ruin, runs
+from service.routes import (
+    charts,
+    docs,
+    exceedance,
+    health,
+    layers,
+    metrics,
+    report,
+    risk_measures,
+    ruin,
+    runs,
+    ui,
+)
 from service.schemas.exceedance import ExceedanceRequest
 from service.schemas.layers import LayersRequest
 from service.schemas.risk_measures import RiskMeasuresRequest
@@ -76,23 +88,38 @@ def create_app(settings: Settings | None = None, *, exit_on_start_failure: bool 
             await runs_worker.stop()
             pool.shutdown()
 
-    app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan)
+    # docs_url / redoc_url None: FastAPI's pages load their assets from a CDN; ours are served
+    # by the app (service/routes/docs.py).
+    app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan,
+                  docs_url=None, redoc_url=None)
     app.state.settings = settings
     app.state.metrics = instruments
     app.state.pool = pool
     app.state.runs = runs_worker
     app.state.auth = AuthConfig(enabled=True) if isinstance(auth, AuthConfigError) else auth
     install_error_handlers(app)
-    examples = load_examples(settings.examples_dir, "exceedance", ExceedanceRequest)
+    examples = {
+        "exceedance": load_examples(settings.examples_dir, "exceedance", ExceedanceRequest),
+        "risk_measures": load_examples(
+            settings.examples_dir, "risk_measures", RiskMeasuresRequest),
+        "layers": load_examples(settings.examples_dir, "layers", LayersRequest),
+        "ruin": ruin.ruin_examples(settings.examples_dir),
+    }
     guarded = [  # every route here needs a token when authentication is on
-        exceedance.build_router(examples=examples),
-        risk_measures.build_router(examples=load_examples(
-            settings.examples_dir, "risk_measures", RiskMeasuresRequest)),
-        layers.build_router(examples=load_examples(settings.examples_dir, "layers", LayersRequest)),
-        ruin.build_router(examples=ruin.ruin_examples(settings.examples_dir)),
+        exceedance.build_router(examples=examples["exceedance"]),
+        risk_measures.build_router(examples=examples["risk_measures"]),
+        layers.build_router(examples=examples["layers"]),
+        ruin.build_router(examples=examples["ruin"]),
         runs.build_router(examples=runs.run_examples(settings.examples_dir)),
+        charts.build_router(examples=examples),
+        report.build_router(),
     ]
-    open_routers = [health.build_router(), metrics.build_router()]
+    open_routers = [  # pages without data, probes and scrapers
+        ui.build_router(),
+        docs.build_router(title=app.title, openapi_url=app.openapi_url or "/openapi.json"),
+        health.build_router(),
+        metrics.build_router(),
+    ]
     for router in guarded:
         app.include_router(router, dependencies=[Depends(authenticate)],
                            responses=AUTH_RESPONSES)

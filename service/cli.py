@@ -47,6 +47,8 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("batch", type=Path, metavar="BATCH.json")
     run.add_argument("--out", type=Path, required=True, metavar="RESULTS.json",
                      help="where to write the results (the body of GET /v1/runs/{run_id})")
+    run.add_argument("--report", type=Path, metavar="REPORT.html",
+                     help="also write the run report: one self-contained HTML page")
     run.add_argument("--workers", type=int, help="size of the computation pool")
     return parser
 
@@ -207,7 +209,8 @@ def _rejected(path: Path, detail: list[dict[str, Any]], stream: TextIO) -> None:
 
 
 async def run_batch_file(
-    batch_path: Path, out_path: Path, *, settings: Settings, stream: TextIO
+    batch_path: Path, out_path: Path, *, settings: Settings, stream: TextIO,
+    report_path: Path | None = None,
 ) -> int:
     """``tailgauge run``: compute the batch, write the results, return the exit status."""
     from service.worker import BatchRejected, run_locally
@@ -215,28 +218,53 @@ async def run_batch_file(
     batch = _read_batch(batch_path, stream)
     if batch is None:
         return RUN_UNUSABLE
-    try:  # before any work: an unwritable --out must not cost the run
+    # Before any work: an unwritable --out (or --report) must not cost the run.
+    try:
         out = ResultsFile.open(out_path)
     except OutputError as exc:
         print(f"tailgauge run: cannot write the results to {out_path}: {exc}; nothing was "
               "run", file=stream)
         return RUN_UNUSABLE
+    report_out: ResultsFile | None = None
+    if report_path is not None:
+        try:
+            report_out = ResultsFile.open(report_path)
+        except OutputError as exc:
+            out.discard()
+            print(f"tailgauge run: cannot write the report to {report_path}: {exc}; nothing "
+                  "was run", file=stream)
+            return RUN_UNUSABLE
     report = ProgressReport(stream)
     try:
         view = await run_locally(batch, settings=settings, on_start=report.start,
                                  on_item=report.item)
     except BatchRejected as exc:
         out.discard()
+        if report_out is not None:
+            report_out.discard()
         _rejected(batch_path, exc.detail, stream)
         return RUN_UNUSABLE
     except BaseException:
         out.discard()
+        if report_out is not None:
+            report_out.discard()
         raise
     try:
         out.write(view.model_dump(mode="json"))
     except OutputError as exc:
+        if report_out is not None:
+            report_out.discard()
         print(f"tailgauge run: writing the results to {out_path} failed: {exc}", file=stream)
         return RUN_UNUSABLE
+    if report_out is not None:
+        from service.report import build_report
+
+        try:
+            report_out.write(build_report(view, batch))
+        except OutputError as exc:
+            print(f"tailgauge run: writing the report to {report_path} failed: {exc}",
+                  file=stream)
+            return RUN_UNUSABLE
     report.finish(view, out_path)
     return RUN_OK if view.status == "done" else RUN_ITEM_FAILED
 
@@ -250,7 +278,7 @@ def _run(args: argparse.Namespace) -> int:
         return RUN_UNUSABLE
     try:
         return asyncio.run(run_batch_file(args.batch, args.out, settings=settings,
-                                          stream=sys.stderr))
+                                          stream=sys.stderr, report_path=args.report))
     except KeyboardInterrupt:
         print("\ntailgauge run: interrupted; no results written", file=sys.stderr)
         return 130

@@ -67,12 +67,15 @@ class ResultsFile:
     def in_place(self) -> bool:
         return self._temporary is None
 
-    def write(self, body: dict[str, Any]) -> None:
-        """Write the body as indented JSON and put it in place (OutputError on failure,
-        with nothing half-written left behind where a rename was possible)."""
+    def write(self, body: dict[str, Any] | str) -> None:
+        """Write the body (a dict as indented JSON, a str as it is) and put it in place
+        (OutputError on failure, nothing half-written left where a rename was possible)."""
         try:
-            json.dump(body, self._handle, indent=2, allow_nan=False)
-            self._handle.write("\n")
+            if isinstance(body, str):
+                self._handle.write(body)
+            else:
+                json.dump(body, self._handle, indent=2, allow_nan=False)
+                self._handle.write("\n")
             self._handle.flush()
             if self._temporary is not None:
                 os.fsync(self._handle.fileno())

@@ -162,3 +162,13 @@ def test_the_openapi_document_lists_the_401(secured):
     assert "401" in paths["/v1/exceedance"]["post"]["responses"]
     assert "401" in paths["/v1/runs/{run_id}"]["delete"]["responses"]
     assert "401" not in paths["/v1/health"]["get"]["responses"]
+
+
+def test_the_report_and_charts_of_a_run_need_its_owners_token(secured):
+    run_id = secured.post("/v1/runs", json=_batch(), headers=_bearer(ALICE)).json()["run_id"]
+    report = f"/v1/runs/{run_id}/report"
+    assert secured.get(report).status_code == 401
+    assert secured.get(report, headers=_bearer(BOB)).status_code == 404
+    assert secured.get(report, headers=_bearer(ALICE)).status_code == 200
+    chart = f"/v1/runs/{run_id}/items/a/chart"
+    assert secured.get(chart, headers=_bearer(BOB)).status_code == 404

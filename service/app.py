@@ -21,6 +21,7 @@ from service.routes import (
     charts,
     docs,
     exceedance,
+    fit,
     health,
     layers,
     metrics,
@@ -31,6 +32,7 @@ from service.routes import (
     ui,
 )
 from service.schemas.exceedance import ExceedanceRequest
+from service.schemas.fit import FitRequest
 from service.schemas.layers import LayersRequest
 from service.schemas.risk_measures import RiskMeasuresRequest
 from service.settings import Settings
@@ -43,8 +45,10 @@ losses and ruin probabilities of a surplus process, each with a 95% interval, th
 reproduces it and the precision reached.
 
 **Cautions.** Model risk dominates sampling error: the intervals cover the sampling error of
-the stated model only. Results are estimates for that model, not advice. Capital and reserving
-figures follow the local regulator's rules and need a qualified actuary's sign-off.
+the stated model only (plus its parameter uncertainty where a line carries
+`parameter_uncertainty`; the choice of family is never covered). Results are estimates for
+that model, not advice. Capital and reserving figures follow the local regulator's rules and
+need a qualified actuary's sign-off.
 """
 
 
@@ -110,6 +114,7 @@ def create_app(settings: Settings | None = None, *, exit_on_start_failure: bool 
         risk_measures.build_router(examples=examples["risk_measures"]),
         layers.build_router(examples=examples["layers"]),
         ruin.build_router(examples=examples["ruin"]),
+        fit.build_router(examples=fit.fit_examples(settings.examples_dir, FitRequest)),
         runs.build_router(examples=runs.run_examples(settings.examples_dir)),
         charts.build_router(examples=examples),
         report.build_router(),

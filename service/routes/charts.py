@@ -21,6 +21,7 @@ from fastapi.exceptions import RequestValidationError
 from pydantic import BaseModel
 
 from service import charts
+from service.auth import CallerDep
 from service.charts import ChartKind, ImageFormat
 from service.deps import MetricsDep, PoolDep, SettingsDep
 from service.errors import detail_entry
@@ -133,12 +134,12 @@ def build_router(*, examples: dict[str, dict[str, dict[str, Any]]]) -> APIRouter
         },
     )
     async def get_item_chart(
-        run_id: str, item_id: str, worker: WorkerDep,
+        run_id: str, item_id: str, worker: WorkerDep, caller: CallerDep,
         chart: Annotated[ChartKind | None, _kind_query()] = None,
         fmt: Annotated[ImageFormat, _format_query()] = "svg",
     ) -> Response:
         """The chart of one computed item of a run, from its stored result."""
-        run, batch = await load_run(worker, run_id)
+        run, batch = await load_run(worker, run_id, owner=caller.owner)
         item = done_item(run, batch, item_id)
         response = KINDS[item.kind].response.model_validate(item.result)
         return await picture(response, chart, fmt)

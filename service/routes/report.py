@@ -8,6 +8,7 @@ from typing import Annotated
 from fastapi import APIRouter, Depends, Request
 from fastapi.responses import HTMLResponse
 
+from service.auth import CallerDep
 from service.report import build_report
 from service.report.page import CSP
 from service.routes.responses import ErrorBody
@@ -35,10 +36,10 @@ def build_router() -> APIRouter:
             404: {"model": ErrorBody, "description": "No run with this run_id."},
         },
     )
-    async def get_report(run_id: str, worker: WorkerDep) -> HTMLResponse:
+    async def get_report(run_id: str, worker: WorkerDep, caller: CallerDep) -> HTMLResponse:
         """The report of the run as it stands: finished items in full, the others noted.
         Open it in a browser, save it, or mail it: it needs no network."""
-        run, batch = await load_run(worker, run_id)
+        run, batch = await load_run(worker, run_id, owner=caller.owner)
         page = await asyncio.to_thread(build_report, run, batch)
         return HTMLResponse(page, headers={"Content-Security-Policy": CSP})
 

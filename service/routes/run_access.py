@@ -20,9 +20,12 @@ def run_not_found(run_id: str) -> HTTPException:
     ])
 
 
-async def load_run(worker: RunWorker, run_id: str) -> tuple[RunOut, RunBatchIn]:
-    """The run's view (GET /v1/runs/{run_id}) and its stored batch; 404 when unknown."""
-    snapshot = await asyncio.to_thread(worker.store.read_run, run_id)
+async def load_run(
+    worker: RunWorker, run_id: str, *, owner: str | None = None
+) -> tuple[RunOut, RunBatchIn]:
+    """The run's view (GET /v1/runs/{run_id}) and its stored batch; 404 when unknown or
+    another token's (``owner``: the caller's token digest, None while auth is off)."""
+    snapshot = await asyncio.to_thread(worker.store.read_run, run_id, owner=owner)
     if snapshot is None:
         raise run_not_found(run_id)
     return run_view(*snapshot), batch_view(*snapshot)

@@ -20,6 +20,7 @@ import os
 import sqlite3
 import threading
 from pathlib import Path
+from typing import ClassVar
 
 from service.settings import Settings
 from service.store import STORE_FILE, SqliteRunStore
@@ -39,7 +40,7 @@ class DataDirError(Exception):
 class DataDirLock:
     """An exclusive lock on a data dir, shared by the holders in this process."""
 
-    _held: dict[str, tuple[DataDirLock, int]] = {}
+    _held: ClassVar[dict[str, tuple[DataDirLock, int]]] = {}
     _guard = threading.Lock()
 
     def __init__(self, data_dir: Path, fd: int) -> None:

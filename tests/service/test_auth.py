@@ -130,7 +130,7 @@ def test_auth_is_off_on_loopback_by_default_and_required_beyond_it():
     assert not load_auth(Settings(host="::1")).enabled
     assert not load_auth(Settings(host="localhost")).enabled
     assert load_auth(Settings(host="127.0.0.1", tokens=ALICE)).enabled
-    with pytest.raises(AuthConfigError, match="listens on 0.0.0.0, beyond loopback"):
+    with pytest.raises(AuthConfigError, match=r"listens on 0\.0\.0\.0, beyond loopback"):
         load_auth(Settings(host="0.0.0.0"))
     with pytest.raises(AuthConfigError, match="TAILGAUGE_AUTH=on"):
         load_auth(Settings(auth="on"))

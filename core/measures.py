@@ -21,12 +21,12 @@ import numpy as np
 from scipy import stats
 
 from core.diagnostics import ContributionStats
-from core.errors import ParameterError
+from core.errors import MethodError, ParameterError
 from core.estimators import select
 from core.estimators.base import Group, work_per_sample
 from core.exceedance import Z95, check_seed
 from core.functionals import sampler
-from core.invariants import check_tail
+from core.invariants import check_tail, flagged
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
 from core.results import Diagnostics
@@ -101,6 +101,30 @@ def check_levels(levels: Sequence[float]) -> np.ndarray:
         if not (0.0 < v < 1.0):
             raise ParameterError(f"levels.{i}", f"must be strictly between 0 and 1, got {v}")
     return q
+
+
+def _negative_claims(portfolio: Portfolio) -> int | None:
+    """The first line whose paid claims can be negative (a normal severity without a
+    retention), or None."""
+    for k, line in enumerate(portfolio.lines):
+        if line.paid_severity.support_min < 0.0:
+            return k
+    return None
+
+
+def _refuse_negative_var(portfolio: Portfolio, levels: list[int]) -> None:
+    """VaR is searched on a grid of positive losses: a level whose VaR the pilot finds at or
+    below 0 (possible only when claims can be negative) is refused with the fix, rather than
+    answered with the grid's edge."""
+    k = _negative_claims(portfolio)
+    if levels and k is not None:
+        raise MethodError(
+            f"levels.{levels[0]}",
+            f"the value-at-risk at this level is not positive (line {k} can pay negative "
+            "claims), and risk measures are computed for positive losses only; give that line "
+            "a retention (each claim then pays max(X - retention, 0)), or use exceedance "
+            "probabilities, which take any threshold",
+        )
 
 
 def guess_var(portfolio: Portfolio, q: float) -> float:
@@ -180,19 +204,70 @@ def _var_error(q: np.ndarray, a: np.ndarray) -> object:
     return error_of
 
 
+def _anchor_span(portfolio: Portfolio, q: np.ndarray) -> tuple[float, float]:
+    """The range the pilot grid must span: every rough VaR candidate (normal approximation,
+    single-loss approximation with and without the mean). Far in a heavy tail they differ by
+    many orders of magnitude (Poisson(5) lognormal(0, 10) at 0.999: the normal guess is 2e44,
+    the VaR 2.4e15), so the grid spans them all, log-spaced."""
+    points = [guess_var(portfolio, float(level)) for level in q]
+    for line in portfolio.lines:
+        lam = line.paid_count.mean
+        if lam > 0:
+            for level in q:
+                p = min((1.0 - float(level)) / lam, 0.5)
+                points.append(float(line.paid_severity.isf(p)))
+    finite = [x for x in points if math.isfinite(x) and x > 0]
+    if not finite:
+        finite = [max(abs(portfolio.mean), 1.0)]
+    return max(min(finite) / 20.0, 1e-9), max(finite) * 20.0
+
+
+def _pilot_grid(lo: float, hi: float) -> np.ndarray:
+    # at least 160 points, and at least 8 a decade so that inversion stays fine
+    decades = math.log10(hi / lo)
+    return np.geomspace(lo, hi, max(160, int(8 * decades) + 1))
+
+
+_PILOT_WIDENINGS = 4  # each widens the pilot grid by 1e3 on the side where the VaR was missed
+
+
 def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> list[float]:
+    vars_, below = _pilot_search(name, portfolio, q, seed)
+    _refuse_negative_var(portfolio, below)
+    return vars_
+
+
+def _pilot_search(name: str, portfolio: Portfolio, q: np.ndarray, seed: int
+                  ) -> tuple[list[float], list[int]]:
+    """Pilot VaRs on a log grid that follows the tail: widened (by 1e3 a side, at most four
+    times) until every level's VaR is bracketed; a level still unbracketed keeps its guess
+    (its final figure is then flagged by the main run's own bracketing check)."""
     guesses = [guess_var(portfolio, float(level)) for level in q]
-    a = np.geomspace(max(min(guesses) / 20.0, 1e-9), max(guesses) * 20.0, 160)
-    values = sampler("conditional" if name == "conditional_is" else name, portfolio, a,
-                     guesses, seed)
-    stats_ = ContributionStats.from_samples(
-        values(PILOT_SAMPLES, block_rng(seed, PILOT, _STREAM, 0)))
-    curves = _Curves(a, stats_)
-    out = []
-    for level, guess in zip(q, guesses, strict=True):
-        v = curves.var(float(level))[0]
-        out.append(v if v is not None else guess)
-    return out
+    lo, hi = _anchor_span(portfolio, q)
+    out: list[float | None] = [None] * q.size
+    for widening in range(_PILOT_WIDENINGS + 1):
+        a = _pilot_grid(lo, hi)
+        values = sampler("conditional" if name == "conditional_is" else name, portfolio, a,
+                         guesses, seed)
+        stats_ = ContributionStats.from_samples(
+            values(PILOT_SAMPLES, block_rng(seed, PILOT, _STREAM, widening)))
+        curves = _Curves(a, stats_)
+        low_side: list[int] = []
+        above = False
+        for i, level in enumerate(q):
+            v = curves.var(float(level))[0]
+            out[i] = v
+            if v is None:
+                # P(S > a) above 1 - q everywhere: the VaR is past the top; else below
+                if curves.p[-1] >= 1.0 - float(level):
+                    above = True
+                else:
+                    low_side.append(i)
+        if not (low_side or above) or lo <= 1e-12 and not above:
+            break
+        lo, hi = (lo / 1e3 if low_side else lo), (hi * 1e3 if above else hi)
+        lo = max(lo, 1e-12)
+    return [v if v is not None else g for v, g in zip(out, guesses, strict=True)], low_side
 
 
 def tail_estimates(
@@ -340,7 +415,13 @@ def _measure(curves: _Curves, q: float, portfolio: Portfolio) -> MeasureEstimate
     if v is None:
         nan_safe = float(a[-1])
         var = Interval(value=nan_safe, ci_low=float(a[0]), ci_high=nan_safe)
-        return MeasureEstimate(level=q, var=var, tvar=var, diagnostics=diag)
+        why = (f"the VaR is not bracketed by the estimation grid [{a[0]:.4g}, {a[-1]:.4g}]: "
+               "the figure is only the grid's edge")
+        return MeasureEstimate(level=q, var=var, tvar=var, diagnostics=flagged(diag, why))
+    if lo is None or hi is None:
+        # An interval cut at the grid's edge would hide the region beyond it.
+        diag = flagged(diag, "the VaR interval runs past the estimation grid "
+                             f"[{a[0]:.4g}, {a[-1]:.4g}]: its end there is not a bound")
     lo = lo if lo is not None else float(a[0])
     hi = hi if hi is not None else float(a[-1])
     sl = _interp_log(a, curves.sl, v)

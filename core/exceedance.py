@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy.stats import beta
@@ -15,6 +16,9 @@ from core.estimators import select
 from core.estimators.base import Group
 from core.invariants import check_monotone, check_probability
 from core.portfolio import Portfolio
+
+if TYPE_CHECKING:
+    from core.credit.model import CreditModel
 from core.precision import GroupRun, Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.sampling import block_size
@@ -155,10 +159,18 @@ def _recursion(
 
 
 def exceedance(
-    portfolio: Portfolio, thresholds: Sequence[float], *, method: str = "auto",
+    portfolio: Portfolio | CreditModel, thresholds: Sequence[float], *, method: str = "auto",
     precision: Precision | None = None, seed: int | None = None,
 ) -> ExceedanceResult:
-    """Estimate P(S > x) for every x in `thresholds`, with intervals and diagnostics."""
+    """Estimate P(S > x) for every x in `thresholds`, with intervals and diagnostics.
+    A credit portfolio (core.credit.CreditModel) goes to the credit estimators."""
+    from core.credit.model import CreditModel
+
+    if isinstance(portfolio, CreditModel):
+        from core.credit.exceedance import credit_exceedance
+
+        return credit_exceedance(portfolio, thresholds, method=method, precision=precision,
+                                 seed=seed)
     start = time.monotonic()
     x = check_thresholds(thresholds)
     seed = check_seed(seed)

@@ -13,9 +13,10 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
+from typing import TYPE_CHECKING
 
 import numpy as np
 from scipy import stats
@@ -28,6 +29,9 @@ from core.exceedance import Z95, check_seed
 from core.functionals import sampler
 from core.invariants import check_tail, flagged
 from core.portfolio import Portfolio
+
+if TYPE_CHECKING:
+    from core.credit.model import CreditModel
 from core.precision import Precision, run_group
 from core.results import Diagnostics
 from core.sampling import PILOT, block_rng, block_size
@@ -60,11 +64,22 @@ class Interval:
 
 
 @dataclass(frozen=True, kw_only=True)
+class Contribution:
+    """A line's Euler allocation of TVaR, E[S_i | S > VaR], scaled so the lines sum to TVaR."""
+
+    label: str
+    tvar_contribution: float
+    ci_low: float
+    ci_high: float
+
+
+@dataclass(frozen=True, kw_only=True)
 class MeasureEstimate:
     level: float
     var: Interval
     tvar: Interval
     diagnostics: Diagnostics
+    contributions: list[Contribution] = field(default_factory=list)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -271,14 +286,21 @@ def _pilot_search(name: str, portfolio: Portfolio, q: np.ndarray, seed: int
 
 
 def tail_estimates(
-    portfolio: Portfolio, *, levels: Sequence[float] = (), layers: Sequence[Layer] = (),
-    losses: Sequence[float] = (), method: str = "auto", precision: Precision | None = None,
-    seed: int | None = None,
+    portfolio: Portfolio | CreditModel, *, levels: Sequence[float] = (),
+    layers: Sequence[Layer] = (), losses: Sequence[float] = (), method: str = "auto",
+    precision: Precision | None = None, seed: int | None = None,
 ) -> TailResult:
     """VaR and TVaR at `levels`, `layers` losses and P(S > loss) for `losses`, from one
     sample set. With `auto`, a result with a figure flagged unreliable is redone with the
     next candidate (at most one per estimator family), and the first fully reliable one is
     kept; when none is, the first is returned with its flags."""
+    from core.credit.model import CreditModel
+
+    if isinstance(portfolio, CreditModel):
+        from core.credit.measures import credit_tail
+
+        return credit_tail(portfolio, levels=levels, layers=layers, losses=losses,
+                           method=method, precision=precision, seed=seed)
     start = time.monotonic()
     seed = check_seed(seed)
     precision = precision or Precision()
@@ -369,24 +391,11 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     """Main run: the grid's exceedance and stop-loss columns, then per layer its loss,
     attachment and exhaustion columns, then P(S > loss) per loss."""
     n_layers = len(layers)
-    extra = [ly.attachment for ly in layers] + [
-        ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
+    extra = point_columns(layers, losses)
     values = sampler(name, portfolio, np.concatenate([a, np.asarray(extra, dtype=float)]),
                      anchors, seed)
     g, e = a.size, len(extra)
-
-    def block(m: int, rng: np.random.Generator) -> np.ndarray:
-        v = values(m, rng)
-        exceed, sl = v[:, :g + e], v[:, g + e:]
-        cols = [exceed[:, :g], sl[:, :g]]
-        for i, ly in enumerate(layers):
-            top = sl[:, g + n_layers + i] if ly.limit is not None else 0.0
-            cols += [(sl[:, g + i] - top)[:, None], exceed[:, g + i:g + i + 1],
-                     exceed[:, g + n_layers + i:g + n_layers + i + 1]]
-        if len(losses):
-            cols.append(exceed[:, g + 2 * n_layers:])
-        # Differences of monotone per-sample values are >= 0 up to rounding.
-        return np.maximum(np.hstack(cols), 0.0)
+    block = layout_block(values, g, layers, losses)
 
     group = Group((0,), block, work_per_sample(portfolio.expected_claims, 2 * (g + e)), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
@@ -394,6 +403,40 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     run = run_group(group, block_size(portfolio), precision, seed,
                     _STREAM + select.METHOD_STREAM[name], deadline, error_of=error_of)
     return _Curves(a, run.stats), run
+
+
+def point_columns(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:
+    """The points beyond the grid whose exceedance and stop loss a run needs: every layer's
+    attachment, then its exhaustion point, then each loss."""
+    return [ly.attachment for ly in layers] + [
+        ly.attachment + (ly.limit or 0.0) for ly in layers] + list(losses)
+
+
+def layout_block(
+    values: Callable[[int, np.random.Generator], np.ndarray], g: int,
+    layers: Sequence[Layer], losses: Sequence[float],
+) -> Callable[[int, np.random.Generator], np.ndarray]:
+    """From per-sample [exceedance | stop loss] at the grid and `point_columns` to the columns
+    _Curves reads: the grid's exceedance and stop loss, then per layer its loss, attachment
+    and exhaustion, then P(S > loss) per loss."""
+    n_layers = len(layers)
+    e = 2 * n_layers + len(losses)
+
+    def block(m: int, rng: np.random.Generator) -> np.ndarray:
+        v = values(m, rng)
+        exceed, sl = v[:, :g + e], v[:, g + e:2 * (g + e)]
+        cols = [exceed[:, :g], sl[:, :g]]
+        for i, ly in enumerate(layers):
+            top = sl[:, g + n_layers + i] if ly.limit is not None else 0.0
+            cols += [(sl[:, g + i] - top)[:, None], exceed[:, g + i:g + i + 1],
+                     exceed[:, g + n_layers + i:g + n_layers + i + 1]]
+        if len(losses):
+            cols.append(exceed[:, g + 2 * n_layers:])
+        cols.append(v[:, 2 * (g + e):])  # any further columns (e.g. Euler terms), kept last
+        # Differences of monotone per-sample values are >= 0 up to rounding.
+        return np.maximum(np.hstack(cols), 0.0)
+
+    return block
 
 
 def _layer_error(g: int, n_layers: int):
@@ -407,7 +450,7 @@ def _layer_error(g: int, n_layers: int):
     return error_of
 
 
-def _measure(curves: _Curves, q: float, portfolio: Portfolio) -> MeasureEstimate:
+def _measure(curves: _Curves, q: float, portfolio: object = None) -> MeasureEstimate:
     v, lo, hi = curves.var(q)
     a = curves.a
     g = int(np.clip(np.searchsorted(a, v if v is not None else a[0]), 0, a.size - 1))

@@ -8,6 +8,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import core
+from core.credit import CreditModel
 from core.errors import LimitError, TailgaugeError
 from service import limits, translate
 from service.executor import ComputePool
@@ -23,7 +24,7 @@ def draw_seed() -> int:
 
 @dataclass(frozen=True)
 class Prepared:
-    portfolio: core.Portfolio
+    portfolio: core.Portfolio | CreditModel
     budget: limits.Budget
     seed: int
 
@@ -32,7 +33,8 @@ def prepare(request: PortfolioRequest, settings: Settings) -> Prepared:
     """Check the server limits and build the core objects of a portfolio request."""
     limits.check_portfolio_size(request.portfolio, settings)
     portfolio = translate.portfolio(request.portfolio)
-    limits.check_expected_claims(portfolio, settings)
+    if isinstance(portfolio, core.Portfolio):
+        limits.check_expected_claims(portfolio, settings)
     budget = limits.budget(request.precision, settings)
     seed = request.seed if request.seed is not None else draw_seed()
     return Prepared(portfolio=portfolio, budget=budget, seed=seed)

@@ -13,6 +13,7 @@ from dataclasses import dataclass, field, replace
 from core import Portfolio, Precision
 from core.errors import LimitError
 from service.schemas.common import PortfolioSpec, PrecisionSpec
+from service.schemas.credit import CreditLineSpec
 from service.settings import Settings
 
 
@@ -50,6 +51,14 @@ def check_list_length(name: str, length: int, limit: int, setting: str) -> None:
 
 def check_portfolio_size(spec: PortfolioSpec, settings: Settings) -> None:
     check_list_length("portfolio.lines", len(spec.lines), settings.max_lines, "max_lines")
+    groups = [g for line in spec.lines if isinstance(line, CreditLineSpec)
+              for g in line.obligors]
+    check_list_length("portfolio.lines", len(groups), settings.max_obligor_groups,
+                      "max_obligor_groups")
+    obligors = sum(g.count for g in groups)
+    if obligors > settings.max_obligors:
+        raise LimitError("portfolio.lines", f"holds {obligors:,} obligors; at most "
+                         f"{settings.max_obligors:,} are allowed (server limit max_obligors)")
 
 
 def check_expected_claims(portfolio: Portfolio, settings: Settings) -> None:

@@ -56,6 +56,14 @@ class Settings(BaseSettings):
     )
     max_thresholds: int = Field(default=1000, ge=1, description="Most thresholds per request.")
     max_lines: int = Field(default=200, ge=1, description="Most lines per portfolio.")
+    max_obligor_groups: int = Field(
+        default=1000, ge=1, description="Most obligor groups per portfolio (all lines)."
+    )
+    max_obligors: int = Field(
+        default=100_000_000, ge=1,
+        description="Most obligors per portfolio (a group of n alike obligors costs as much as "
+        "one with fixed LGDs; a beta LGD draws one number per default).",
+    )
     max_expected_claims: float = Field(
         default=100_000,
         gt=0,

@@ -12,6 +12,7 @@ from contextlib import contextmanager
 from typing import Any
 
 import core
+from core.credit import CreditModel
 from core.errors import MethodError, ParameterError, TailgaugeError
 from core.measures import Interval, Layer, LayerEstimate, MeasureEstimate, TailResult
 from core.results import (
@@ -22,7 +23,9 @@ from core.results import (
     RuinEstimate,
     RuinResult,
 )
+from service import credit_translate
 from service.schemas.common import ComputationOut, DiagnosticsOut, LineSpec, PortfolioSpec
+from service.schemas.credit import ContributionOut
 from service.schemas.exceedance import ExceedanceEstimateOut, ExceedanceResponse
 from service.schemas.layers import LayerOut, LayerSpec, LayersResponse
 from service.schemas.risk_measures import (
@@ -91,7 +94,9 @@ def _line(spec: LineSpec, path: str) -> core.Line:
         )
 
 
-def portfolio(spec: PortfolioSpec) -> core.Portfolio:
+def portfolio(spec: PortfolioSpec) -> core.Portfolio | CreditModel:
+    if credit_translate.has_obligors(spec):
+        return credit_translate.credit_model(spec)
     lines = [_line(line, f"portfolio.lines[{i}]") for i, line in enumerate(spec.lines)]
     with located("portfolio"):
         return core.Portfolio(lines=lines)
@@ -105,9 +110,11 @@ def layers(specs: list[LayerSpec]) -> list[Layer]:
     return out
 
 
-def check_finite_means(model: core.Portfolio, figure: str) -> None:
+def check_finite_means(model: core.Portfolio | CreditModel, figure: str) -> None:
     """Refuse a line whose paid claims have an infinite mean (e.g. Pareto alpha <= 1 with no
     per-claim limit) when ``figure`` needs E[S]-type integrals to exist."""
+    if isinstance(model, CreditModel):
+        return  # a credit loss is bounded by the sum of the exposures
     for k, line in enumerate(model.lines):
         if line.paid_count.mean > 0 and not math.isfinite(line.paid_severity.mean):
             raise MethodError(
@@ -229,6 +236,10 @@ def _measure(m: MeasureEstimate) -> MeasureOut:
         tvar_ci_high=finite_or_none(m.tvar.ci_high),
         tvar_std_error=finite_or_none(m.tvar.std_error),
         diagnostics=diagnostics(m.diagnostics),
+        contributions=[ContributionOut(
+            label=c.label, tvar_contribution=finite_or_none(c.tvar_contribution),
+            ci_low=finite_or_none(c.ci_low), ci_high=finite_or_none(c.ci_high))
+            for c in m.contributions],
     )
 
 

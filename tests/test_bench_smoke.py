@@ -2,7 +2,7 @@
 
 import json
 
-from bench import run, service
+from bench import credit, run, service
 
 
 def test_bench_runs_on_a_tiny_budget(capsys):
@@ -18,3 +18,9 @@ def test_service_bench_runs_on_a_tiny_budget(capsys):
     assert "Service overhead" in capsys.readouterr().out
     data = json.loads((service.OUT / "service_quick.json").read_text())
     assert data["throughput"]["failed"] == 0 and data["overhead"]["ratio"] > 0
+
+
+def test_credit_bench_runs_on_a_tiny_budget(capsys):
+    assert credit.main(["--quick"]) == 0
+    printed = capsys.readouterr().out
+    assert "Glasserman-Li" in printed and "Cost:" in printed

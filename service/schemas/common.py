@@ -7,7 +7,7 @@ choosing; thresholds, retentions, limits and severity scales must all use the sa
 
 from __future__ import annotations
 
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
@@ -186,10 +186,23 @@ class LineSpec(RequestModel):
         description="Per-claim limit in money units (0 < limit <= 10^18); null = unlimited.",
     )
 
+    @model_validator(mode="wrap")
+    @classmethod
+    def _obligor_line(cls, data: Any, handler: Any) -> Any:
+        # A line of obligors ({label?, obligors}) is a CreditLineSpec; delegating here keeps
+        # a claim line's error paths free of union-member names.
+        if isinstance(data, dict) and "obligors" in data:
+            from service.schemas.credit import CreditLineSpec
+
+            return CreditLineSpec.model_validate(data)
+        return handler(data)
+
     @model_validator(mode="after")
     def _layer_can_pay(self) -> LineSpec:
         # A retention at or above the largest possible claim makes the line pay nothing,
         # which is almost surely a units mistake rather than an intended model.
+        if not isinstance(self, LineSpec):  # a line of obligors, validated on its own
+            return self
         top = severity_upper_end(self.severity)
         if top is not None and self.retention is not None and self.retention >= top:
             raise ValueError(
@@ -203,20 +216,31 @@ class PortfolioSpec(RequestModel):
     lines: list[LineSpec] = Field(
         min_length=1,
         description="Independent lines of business; the portfolio loss S is the sum of their "
-        "per-period aggregate losses.",
+        "per-period aggregate losses. A line may instead be a line of obligors "
+        "{label?, obligors: group | [group...]} (see service/schemas/credit.py): then every "
+        "line must be one, on portfolio.factors.",
     )
+    factors: FactorsSpec | None = Field(
+        default=None, description="Systematic factors of the obligor groups.")
+    dependence: DependenceSpec | None = Field(
+        default=None, description="Copula of the factor model (gaussian when absent).")
 
 
 # --- method and precision -------------------------------------------------------------------
 
 Method = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion"]
+# Portfolio requests also take the credit estimator (ruin keeps Method).
+PortfolioMethod = Literal[
+    "auto", "crude", "tilted", "conditional", "conditional_is", "recursion", "glasserman_li"
+]
 
 METHOD_DESCRIPTION = (
     "Estimator: auto (chosen from the model's tails and a short pilot), crude (plain Monte "
     "Carlo), tilted (exponential tilting, light tails), conditional (Asmussen-Kroese "
     "conditional Monte Carlo, heavy tails), conditional_is (conditional Monte Carlo over which "
     "claim is largest), recursion (deterministic discretised recursion with lower and upper "
-    "bounds)."
+    "bounds), glasserman_li (two-step importance sampling of Glasserman and Li 2005, for "
+    "obligor groups)."
 )
 
 
@@ -267,7 +291,7 @@ class PortfolioRequest(RequestModel):
     """Fields shared by every request that computes figures of a portfolio's loss S."""
 
     portfolio: PortfolioSpec = Field(description="The portfolio loss model: its lines.")
-    method: Method = Field(default="auto", description=METHOD_DESCRIPTION)
+    method: PortfolioMethod = Field(default="auto", description=METHOD_DESCRIPTION)
     precision: PrecisionSpec = Field(
         default_factory=PrecisionSpec,
         description="Precision target and budgets; server limits apply to every budget.",
@@ -326,3 +350,8 @@ class ComputationOut(BaseModel):
         "(e.g. a Pareto line with alpha <= 2)."
     )
     warnings: list[str] = Field(description="Things the caller should know about these figures.")
+
+
+from service.schemas.credit import DependenceSpec, FactorsSpec  # noqa: E402
+
+PortfolioSpec.model_rebuild()

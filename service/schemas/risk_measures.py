@@ -9,6 +9,7 @@ from pydantic import BaseModel, Field, ValidationInfo, field_validator
 from pydantic_core import PydanticCustomError
 
 from service.schemas.common import ComputationOut, DiagnosticsOut, Money, PortfolioRequest
+from service.schemas.credit import ContributionOut
 
 # 1 - 1/T must stay distinguishable from 1 in double precision (about 1e-16 apart).
 RETURN_PERIOD_MAX = 1e12
@@ -87,6 +88,11 @@ class MeasureOut(BaseModel):
     )
     diagnostics: DiagnosticsOut = Field(
         description="How far the error bar of the exceedance estimate at VaR_q can be trusted."
+    )
+    contributions: list[ContributionOut] = Field(
+        default_factory=list,
+        description="Euler allocation of TVaR_q to the obligor groups (they sum to TVaR_q); "
+        "empty for a portfolio of claim lines.",
     )
 
 

@@ -1,0 +1,117 @@
+"""P(L > x) for a credit portfolio: the credit branch of core.exceedance.exceedance."""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Sequence
+
+import numpy as np
+
+from core.credit.estimators import CREDIT_METHODS, METHOD_STREAM, block_size, plan
+from core.credit.model import CreditModel
+from core.credit.moments import loss_moments
+from core.diagnostics import ContributionStats
+from core.errors import MethodError, ParameterError
+from core.estimators.base import Group
+from core.precision import Precision, run_group
+from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
+from core.sampling import PILOT, block_rng
+
+PILOT_SAMPLES = 4096
+
+
+def check_method(method: str) -> str:
+    if method == "recursion":
+        raise MethodError("method", "recursion has no rigorous bounds for a portfolio with "
+                                    "obligor groups; use auto, crude or glasserman_li")
+    if method != "auto" and method not in CREDIT_METHODS:
+        raise ParameterError("method", "a portfolio with obligor groups takes one of auto, "
+                                       f"{', '.join(CREDIT_METHODS)}; got {method!r}")
+    return method
+
+
+def choose(model: CreditModel, x: np.ndarray, seed: int) -> tuple[list[str], str]:
+    """Candidates best first by work-normalised relative variance in a short pilot at the
+    extreme thresholds, and the reason in words."""
+    top = model.max_loss
+    inside = x[x < top]
+    probe = np.unique(np.array([inside.min(), inside.max()])) if inside.size else x[:1]
+    scores: dict[str, float] = {}
+    for name in CREDIT_METHODS:
+        cost = 0.0
+        for g, group in enumerate(plan(name, model, probe)):
+            rng = block_rng(seed, PILOT, (METHOD_STREAM[name] << 24) + g, 0)
+            stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
+            mean = np.asarray(stats.mean(), dtype=float)
+            se = np.asarray(stats.std_error(), dtype=float)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                rv = np.where(mean > 0, (se / mean) ** 2 * PILOT_SAMPLES, math.inf)
+            cost += float(np.max(rv)) * group.work
+        scores[name] = cost
+    names = sorted(CREDIT_METHODS, key=lambda n: scores[n])
+    best = names[0]
+    other = names[1]
+    rel = (f"{scores[other] / scores[best]:.3g}x" if math.isfinite(scores[other])
+           and scores[best] > 0 else "no hits in pilot")
+    return names, (f"obligor groups: pilot of {PILOT_SAMPLES} samples per candidate; {best} "
+                   f"has the lowest work-normalised variance ({other} {rel})")
+
+
+def credit_exceedance(
+    model: CreditModel, thresholds: Sequence[float], *, method: str = "auto",
+    precision: Precision | None = None, seed: int | None = None,
+) -> ExceedanceResult:
+    from core.exceedance import _estimate, _warnings, check_seed, check_thresholds
+
+    start = time.monotonic()
+    x = check_thresholds(thresholds)
+    seed = check_seed(seed)
+    method = check_method(method)
+    precision = precision or Precision()
+    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    if method == "auto":
+        names, reason = choose(model, x, seed)
+        name = names[0]
+    else:
+        name, reason = method, f"{method} requested"
+    top = model.max_loss
+    possible = np.flatnonzero(x < top)
+    found: dict[int, ExceedanceEstimate] = {}
+    stops: list[str] = []
+    groups = plan(name, model, x[possible]) if possible.size else []
+    block = block_size(model)
+    for gid, group in enumerate(groups):
+        mapped = Group(tuple(int(possible[i]) for i in group.indices), group.block_values,
+                       group.work, group.detail)
+        run = run_group(mapped, block, precision, seed, gid + (METHOD_STREAM[name] << 24),
+                        deadline)
+        stops.append(run.stopped_by)
+        diags = run.stats.diagnose()
+        for col, i in enumerate(mapped.indices):
+            found[i] = _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col])
+    warnings: list[str] = []
+    for i in range(x.size):
+        if i not in found:
+            found[i] = _impossible(float(x[i]), name)
+            warnings.append(f"threshold {x[i]:g}: at or above the largest possible loss "
+                            f"{top:g}; the probability is exactly 0")
+    estimates = [found[i] for i in range(x.size)]
+    order = ("time_limit", "max_samples", "samples", "relative_error")
+    stopped = next((s for s in order if s in stops), "exact")
+    warnings = _warnings([e for e in estimates if e.samples > 0]) + warnings
+    if stopped == "time_limit":
+        warnings.append("stopped by the time limit: the figures are not reproducible exactly")
+    mean, sd = loss_moments(model)
+    return ExceedanceResult(
+        method=name, method_reason=reason, seed=seed, elapsed_s=time.monotonic() - start,
+        stopped_by=stopped, mean=mean, std_dev=sd, estimates=estimates, warnings=warnings)
+
+
+def _impossible(x: float, name: str) -> ExceedanceEstimate:
+    diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
+                       batch_ratio=None, reliable=True,
+                       reason="the threshold is at or above the largest possible loss")
+    return ExceedanceEstimate(threshold=x, value=0.0, std_error=0.0, relative_error=None,
+                              ci_low=0.0, ci_high=0.0, samples=0, hits=0, diagnostics=diag,
+                              method=name)

@@ -23,7 +23,8 @@ from core.precision import GroupRun, Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.sampling import block_size
 
-METHODS = ("auto", "crude", "tilted", "conditional", "conditional_is", "recursion")
+METHODS = ("auto", "crude", "tilted", "conditional", "conditional_is", "recursion",
+           "mean_shift", "radial")
 Z95 = 1.959963984540054
 LARGE_SHARE = 0.1
 
@@ -177,6 +178,10 @@ def exceedance(
     precision = precision or Precision()
     if method not in METHODS:
         raise ParameterError("method", f"must be one of {', '.join(METHODS)}; got {method!r}")
+    if portfolio.dependence is not None:
+        from core.dependence.exceed import dependent_exceedance
+
+        return dependent_exceedance(portfolio, x, method, precision, seed, start)
     if method == "recursion":
         return _recursion(portfolio, x, precision, seed, start)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s

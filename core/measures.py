@@ -262,8 +262,12 @@ def _pilot_search(name: str, portfolio: Portfolio, q: np.ndarray, seed: int
     out: list[float | None] = [None] * q.size
     for widening in range(_PILOT_WIDENINGS + 1):
         a = _pilot_grid(lo, hi)
-        values = sampler("conditional" if name == "conditional_is" else name, portfolio, a,
-                         guesses, seed)
+        if portfolio.dependence is not None:
+            values = _dependent_values(name, portfolio, a, guesses, seed,
+                                       euler=np.zeros(0, np.int64))
+        else:
+            values = sampler("conditional" if name == "conditional_is" else name, portfolio,
+                             a, guesses, seed)
         stats_ = ContributionStats.from_samples(
             values(PILOT_SAMPLES, block_rng(seed, PILOT, _STREAM, widening)))
         curves = _Curves(a, stats_)
@@ -305,6 +309,10 @@ def tail_estimates(
     seed = check_seed(seed)
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
+    if method == "recursion" and portfolio.dependence is not None:
+        raise MethodError("method", "recursion does not apply to a dependent portfolio "
+                                    "(portfolio.dependence): no rigorous bounds for a "
+                                    "copula-coupled sum are implemented; use auto")
     if method == "recursion":
         from core.recursion_measures import tail_bounds
 
@@ -354,6 +362,19 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
             warnings.append(f"VaR interval at levels {missing} runs past the estimation grid; "
                             "increase samples")
     measures = [_measure(curves, float(level), portfolio) for level in q]
+    if portfolio.dependence is not None:
+        from core.dependence.allocation import with_contributions
+
+        idx = euler_points(portfolio, g=a.size)
+        tail_cols = idx.size * len(portfolio.lines)
+        g = a.size
+        mean = np.asarray(curves.stats.mean(), dtype=float)
+        se = np.asarray(curves.stats.std_error(), dtype=float)
+        bounds = (mean[-2 * g:-g] - Z95 * se[-2 * g:-g], mean[-g:] + Z95 * se[-g:])
+        e_mean = mean[-(tail_cols + 2 * g):-2 * g]
+        e_se = se[-(tail_cols + 2 * g):-2 * g]
+        measures = [with_contributions(_grid_widened(ms, a, bounds), a[idx], e_mean, e_se,
+                                       portfolio) for ms in measures]
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
     measures, layer_out, notes = check_tail(measures, layer_out)
@@ -375,6 +396,51 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
     )
 
 
+def _grid_widened(ms: MeasureEstimate, a: np.ndarray,
+                  bounds: tuple[np.ndarray, np.ndarray]) -> MeasureEstimate:
+    """The VaR interval widened to the lattice's lower law's lower band and upper law's upper
+    band (their crossings of 1 - q), so the grid error of the line quantiles is inside it."""
+    from dataclasses import replace
+
+    p = 1.0 - ms.level
+    low = _invert(a, np.maximum(bounds[0], 0.0), p)
+    high = _invert(a, bounds[1], p)
+    var = ms.var
+    new = Interval(value=var.value,
+                   ci_low=min(var.ci_low, low if low is not None else float(a[0])),
+                   ci_high=max(var.ci_high, high if high is not None else float(a[-1])),
+                   std_error=var.std_error)
+    return replace(ms, var=new)
+
+
+def euler_points(portfolio: Portfolio, *, g: int) -> np.ndarray:
+    """Grid points where the Euler terms E[S_i 1{S > a}] are kept (all for a few lines, every
+    fourth for more, so the columns stay bounded)."""
+    step = 1 if len(portfolio.lines) <= 4 else 4
+    return np.arange(0, g, step, dtype=np.int64)
+
+
+def _dependent_values(name: str, portfolio: Portfolio, points: np.ndarray,
+                      anchors: Sequence[float], seed: int, *, euler: np.ndarray):
+    """[exceedance | stop-loss | Euler terms] of a dependent portfolio's estimator."""
+    from core.dependence import engine
+
+    n_pts = points.size
+    fn = engine.values(name, portfolio, points, anchors, euler, seed,
+                       smallest_tail=1e-9)
+    width = 2 * n_pts + euler.size * len(portfolio.lines)
+
+    def block(m: int, rng: np.random.Generator) -> np.ndarray:
+        # ... then the lower and upper laws' exceedance at the grid points (GRID of them),
+        # which bound the lattice's grid error of VaR.
+        v = fn(m, rng)
+        g = min(GRID, n_pts)
+        return np.hstack([v[:, :width], v[:, width:width + g],
+                          v[:, width + n_pts:width + n_pts + g]])
+
+    return block
+
+
 def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str,
             seed: int) -> tuple[list[str], str]:
     """Candidate names, best first, and the reason in words."""
@@ -383,6 +449,10 @@ def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str
     points = [guess_var(portfolio, float(level)) for level in q] + [x for x in extra if x > 0]
     # The pilot compares estimators at the extreme points only: it costs a pilot per point.
     probe = sorted(points)[:: max(1, len(points) - 1)] if points else [portfolio.mean]
+    if portfolio.dependence is not None:
+        from core.dependence.exceed import choose
+
+        return choose(portfolio, np.asarray(probe), seed, measures=True)
     trials, reason = select.choose(portfolio, np.asarray(probe), seed)
     return [t.name for t in trials], reason
 
@@ -392,8 +462,12 @@ def _run(name, portfolio, a, q, layers, losses, anchors, precision, seed, start)
     attachment and exhaustion columns, then P(S > loss) per loss."""
     n_layers = len(layers)
     extra = point_columns(layers, losses)
-    values = sampler(name, portfolio, np.concatenate([a, np.asarray(extra, dtype=float)]),
-                     anchors, seed)
+    points = np.concatenate([a, np.asarray(extra, dtype=float)])
+    if portfolio.dependence is not None:
+        values = _dependent_values(name, portfolio, points, anchors, seed,
+                                   euler=euler_points(portfolio, g=a.size))
+    else:
+        values = sampler(name, portfolio, points, anchors, seed)
     g, e = a.size, len(extra)
     block = layout_block(values, g, layers, losses)
 

@@ -15,8 +15,9 @@ from pydantic import BaseModel
 
 from service.executor import ComputePool
 from service.metrics import Metrics
-from service.routes import exceedance, layers, risk_measures, ruin
+from service.routes import exceedance, fit, layers, risk_measures, ruin
 from service.schemas.exceedance import ExceedanceRequest, ExceedanceResponse
+from service.schemas.fit import FitRequest, FitResponse
 from service.schemas.layers import LayersRequest, LayersResponse
 from service.schemas.risk_measures import RiskMeasuresRequest, RiskMeasuresResponse
 from service.schemas.ruin import RuinRequest, RuinResponse
@@ -27,7 +28,7 @@ Handler = Callable[[BaseModel, Settings, ComputePool, Metrics], Awaitable[BaseMo
 
 @dataclass(frozen=True, kw_only=True)
 class Kind:
-    name: str  # "exceedance" | "risk_measures" | "layers" | "ruin"
+    name: str  # "exceedance" | "risk_measures" | "layers" | "ruin" | "fit"
     request: type[BaseModel]  # the endpoint's request model
     response: type[BaseModel]  # the endpoint's response model
     handle: Handler
@@ -43,5 +44,6 @@ KINDS: dict[str, Kind] = {
         Kind(name="layers", request=LayersRequest, response=LayersResponse,
              handle=layers.handle),
         Kind(name="ruin", request=RuinRequest, response=RuinResponse, handle=ruin.handle),
+        Kind(name="fit", request=FitRequest, response=FitResponse, handle=fit.handle),
     )
 }

@@ -11,9 +11,13 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import Any
 
+import numpy as np
+
 import core
 from core.credit import CreditModel
+from core.dependence.copula import Copula
 from core.errors import MethodError, ParameterError, TailgaugeError
+from core.fitting.spliced import Spliced
 from core.measures import Interval, Layer, LayerEstimate, MeasureEstimate, TailResult
 from core.results import (
     CapitalForTarget,
@@ -45,6 +49,21 @@ _SEVERITIES: dict[str, Callable[..., Any]] = {
     "normal": core.Normal,
     "generalized_pareto": core.GeneralizedPareto,
 }
+
+
+def _spliced(*, threshold: float, body_weight: float, body: dict[str, Any],
+             tail: dict[str, Any]) -> Spliced:
+    parts = dict(body)
+    family = parts.pop("family")
+    with located("body"):
+        body_law = _SEVERITIES[family](**parts)
+    with located("tail"):
+        tail_law = core.GeneralizedPareto(**tail)
+    return Spliced(body=body_law, threshold=threshold, body_weight=body_weight,
+                   tail_law=tail_law)
+
+
+_SEVERITIES["spliced"] = _spliced
 _COUNTS: dict[str, Callable[..., Any]] = {
     "fixed": core.Fixed,
     "poisson": core.Poisson,
@@ -98,8 +117,20 @@ def portfolio(spec: PortfolioSpec) -> core.Portfolio | CreditModel:
     if credit_translate.has_obligors(spec):
         return credit_translate.credit_model(spec)
     lines = [_line(line, f"portfolio.lines[{i}]") for i, line in enumerate(spec.lines)]
+    dep = None
+    if spec.dependence is not None:
+        # The copula's errors already name portfolio.dependence.<field>[.row.column].
+        from core.dependence.copula import check_correlation
+
+        d = spec.dependence
+        if d.correlation is None:
+            raise ParameterError("portfolio.dependence.correlation",
+                                 "is required for claim lines: one row and column per line")
+        check_correlation(d.correlation, size=len(lines))
+        dep = Copula(kind=d.copula, correlation=np.asarray(d.correlation, dtype=float),
+                     df=d.df)
     with located("portfolio"):
-        return core.Portfolio(lines=lines)
+        return core.Portfolio(lines=lines, dependence=dep)
 
 
 def layers(specs: list[LayerSpec]) -> list[Layer]:

@@ -14,6 +14,7 @@ from core.credit.moments import loss_moments
 from core.diagnostics import ContributionStats
 from core.errors import MethodError, ParameterError
 from core.estimators.base import Group
+from core.invariants import check_monotone, check_probability
 from core.precision import Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.sampling import PILOT, block_rng
@@ -89,14 +90,17 @@ def credit_exceedance(
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(mapped.indices):
-            found[i] = _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col])
+            # The invariants every result passes (core.invariants) apply here too.
+            found[i] = check_probability(
+                _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col]))[0]
     warnings: list[str] = []
     for i in range(x.size):
         if i not in found:
             found[i] = _impossible(float(x[i]), name)
             warnings.append(f"threshold {x[i]:g}: at or above the largest possible loss "
                             f"{top:g}; the probability is exactly 0")
-    estimates = [found[i] for i in range(x.size)]
+    estimates, notes = check_monotone([found[i] for i in range(x.size)], x.tolist())
+    warnings += notes
     order = ("time_limit", "max_samples", "samples", "relative_error")
     stopped = next((s for s in order if s in stops), "exact")
     warnings = _warnings([e for e in estimates if e.samples > 0]) + warnings
@@ -110,7 +114,7 @@ def credit_exceedance(
 
 def _impossible(x: float, name: str) -> ExceedanceEstimate:
     diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                       batch_ratio=None, reliable=True,
+                       batch_ratio=None, reliable=True, exact=True,
                        reason="the threshold is at or above the largest possible loss")
     return ExceedanceEstimate(threshold=x, value=0.0, std_error=0.0, relative_error=None,
                               ci_low=0.0, ci_high=0.0, samples=0, hits=0, diagnostics=diag,

@@ -33,6 +33,7 @@ from core.diagnostics import ContributionStats
 from core.estimators.base import BlockFn, Group
 from core.exceedance import Z95, check_seed
 from core.functionals import spread_out
+from core.invariants import check_tail
 from core.measures import (
     PILOT_SAMPLES,
     Contribution,
@@ -150,6 +151,8 @@ def credit_tail(
         if not m.diagnostics.reliable:
             warnings.append(f"level {m.level:g}: flagged unreliable: {m.diagnostics.reason}")
     layer_out = _layers(curves, a, layers)
+    measures, layer_out, notes = check_tail(measures, layer_out)
+    warnings += notes
     for ly in layer_out:
         if not ly.diagnostics.reliable:
             warnings.append(f"layer {ly.attachment:g} xs: flagged unreliable: "

@@ -18,7 +18,8 @@ from core.sampling import PILOT, block_rng
 PILOT_SAMPLES = 4096
 # Pilot streams of different candidates must not share random numbers with each other.
 _PILOT_GROUP_BASE = {"crude": 1 << 20, "conditional": 2 << 20, "tilted": 3 << 20}
-METHOD_STREAM = {"crude": 0, "conditional": 1, "conditional_is": 2, "tilted": 3}
+METHOD_STREAM = {"crude": 0, "conditional": 1, "conditional_is": 2, "tilted": 3, "mean_shift": 4,
+                 "radial": 5}
 
 
 def candidates(portfolio: Portfolio) -> list[str]:

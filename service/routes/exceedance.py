@@ -13,7 +13,8 @@ from fastapi import APIRouter, Body
 from pydantic import BaseModel
 
 import core
-from service import compute, limits, translate
+from core.parameter_figures import exceedance_with_parameter_risk
+from service import compute, limits, parameter_risk, translate
 from service.deps import MetricsDep, PoolDep, SettingsDep
 from service.executor import ComputePool
 from service.metrics import Metrics
@@ -33,9 +34,11 @@ async def handle(
         "thresholds", len(body.thresholds), settings.max_thresholds, "max_thresholds"
     )
     job = compute.prepare(body, settings)
-    result = await compute.run_engine(
+    result, nested = await parameter_risk.run(
         pool,
+        body.portfolio,
         core.exceedance,
+        exceedance_with_parameter_risk,
         job.portfolio,
         body.thresholds,
         wall_limit_s=job.budget.wall_limit_s,
@@ -47,7 +50,10 @@ async def handle(
     notes = job.budget.warnings + job.budget.stop_warnings(
         result.stopped_by, body.precision.relative_error
     )
-    return translate.exceedance_response(result, warnings=notes)
+    response = translate.exceedance_response(result, warnings=notes)
+    if nested is not None:
+        parameter_risk.attach_exceedance(response, nested)
+    return response
 
 
 def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:

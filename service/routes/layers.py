@@ -15,7 +15,8 @@ from pydantic import BaseModel
 
 from core import measures
 from core.errors import TailgaugeError
-from service import compute, limits, translate
+from core.parameter_figures import tail_estimates_with_parameter_risk
+from service import compute, limits, parameter_risk, translate
 from service.deps import MetricsDep, PoolDep, SettingsDep
 from service.executor import ComputePool
 from service.metrics import Metrics
@@ -41,9 +42,11 @@ async def handle(
                 job.portfolio, f"the expected loss of the unlimited layers[{i}]"
             )
     try:
-        result = await compute.run_engine(
+        result, nested = await parameter_risk.run(
             pool,
+            body.portfolio,
             measures.tail_estimates,
+            tail_estimates_with_parameter_risk,
             job.portfolio,
             wall_limit_s=job.budget.wall_limit_s,
             layers=translate.layers(body.layers),
@@ -58,7 +61,10 @@ async def handle(
     notes = job.budget.warnings + job.budget.stop_warnings(
         result.stopped_by, body.precision.relative_error
     )
-    return translate.layers_response(result, warnings=notes)
+    response = translate.layers_response(result, warnings=notes)
+    if nested is not None:
+        parameter_risk.attach_layers(response, nested)
+    return response
 
 
 def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:

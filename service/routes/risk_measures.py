@@ -15,7 +15,8 @@ from pydantic import BaseModel
 
 from core import measures
 from core.errors import TailgaugeError
-from service import compute, limits, translate
+from core.parameter_figures import tail_estimates_with_parameter_risk
+from service import compute, limits, parameter_risk, translate
 from service.deps import MetricsDep, PoolDep, SettingsDep
 from service.executor import ComputePool
 from service.metrics import Metrics
@@ -50,9 +51,11 @@ async def handle(
     # Return period T is the VaR at level 1 - 1/T: one call, one sample set for everything.
     levels = [*body.levels, *(1.0 - 1.0 / t for t in body.return_periods)]
     try:
-        result = await compute.run_engine(
+        result, nested = await parameter_risk.run(
             pool,
+            body.portfolio,
             measures.tail_estimates,
+            tail_estimates_with_parameter_risk,
             job.portfolio,
             wall_limit_s=job.budget.wall_limit_s,
             levels=levels,
@@ -70,10 +73,13 @@ async def handle(
     notes = job.budget.warnings + job.budget.stop_warnings(
         result.stopped_by, body.precision.relative_error
     )
-    return translate.risk_measures_response(
+    response = translate.risk_measures_response(
         result, n_levels=len(body.levels), return_periods=body.return_periods,
         losses=body.losses, warnings=notes,
     )
+    if nested is not None:
+        parameter_risk.attach_measures(response, nested, len(body.levels))
+    return response
 
 
 def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:

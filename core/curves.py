@@ -12,6 +12,7 @@ import numpy as np
 
 from core.diagnostics import ContributionStats
 from core.intervals import Z95, no_hit_upper, normal
+from core.invariants import flagged
 from core.levels import Layer
 from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate
 
@@ -141,7 +142,13 @@ def _measure(curves: _Curves, q: float) -> MeasureEstimate:
     if v is None:
         nan_safe = float(a[-1])
         var = Interval(value=nan_safe, ci_low=float(a[0]), ci_high=nan_safe)
-        return MeasureEstimate(level=q, var=var, tvar=var, diagnostics=diag)
+        why = (f"the VaR is not bracketed by the estimation grid [{a[0]:.4g}, {a[-1]:.4g}]: "
+               "the figure is only the grid's edge")
+        return MeasureEstimate(level=q, var=var, tvar=var, diagnostics=flagged(diag, why))
+    if lo is None or hi is None:
+        # An interval cut at the grid's edge would hide the region beyond it.
+        diag = flagged(diag, "the VaR interval runs past the estimation grid "
+                             f"[{a[0]:.4g}, {a[-1]:.4g}]: its end there is not a bound")
     lo = lo if lo is not None else float(a[0])
     hi = hi if hi is not None else float(a[-1])
     sl = _interp_log(a, curves.sl, v)

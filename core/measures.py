@@ -11,6 +11,7 @@ derivative of TVaR in VaR vanishes at the true VaR).
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Sequence
 from typing import TYPE_CHECKING
@@ -65,25 +66,101 @@ __all__ = [
     "tail_estimates",
 ]
 
+def _negative_claims(portfolio: Portfolio) -> int | None:
+    """The first line whose paid claims can be negative (a normal severity without a
+    retention), or None."""
+    for k, line in enumerate(portfolio.lines):
+        if line.paid_severity.support_min < 0.0:
+            return k
+    return None
+
+
+def _refuse_negative_var(portfolio: Portfolio, levels: list[int]) -> None:
+    """VaR is searched on a grid of positive losses: a level whose VaR the pilot finds at or
+    below 0 (possible only when claims can be negative) is refused with the fix, rather than
+    answered with the grid's edge."""
+    k = _negative_claims(portfolio)
+    if levels and k is not None:
+        raise MethodError(
+            f"levels.{levels[0]}",
+            f"the value-at-risk at this level is not positive (line {k} can pay negative "
+            "claims), and risk measures are computed for positive losses only; give that line "
+            "a retention (each claim then pays max(X - retention, 0)), or use exceedance "
+            "probabilities, which take any threshold",
+        )
+
+
+def _anchor_span(portfolio: Portfolio, q: np.ndarray) -> tuple[float, float]:
+    """The range the pilot grid must span: every rough VaR candidate (normal approximation,
+    single-loss approximation with and without the mean). Far in a heavy tail they differ by
+    many orders of magnitude (Poisson(5) lognormal(0, 10) at 0.999: the normal guess is 2e44,
+    the VaR 2.4e15), so the grid spans them all, log-spaced."""
+    points = [guess_var(portfolio, float(level)) for level in q]
+    for line in portfolio.lines:
+        lam = line.paid_count.mean
+        if lam > 0:
+            for level in q:
+                p = min((1.0 - float(level)) / lam, 0.5)
+                points.append(float(line.paid_severity.isf(p)))
+    finite = [x for x in points if math.isfinite(x) and x > 0]
+    if not finite:
+        finite = [max(abs(portfolio.mean), 1.0)]
+    return max(min(finite) / 20.0, 1e-9), max(finite) * 20.0
+
+
+def _pilot_grid(lo: float, hi: float) -> np.ndarray:
+    # at least 160 points, and at least 8 a decade so that inversion stays fine
+    decades = math.log10(hi / lo)
+    return np.geomspace(lo, hi, max(160, int(8 * decades) + 1))
+
+
+_PILOT_WIDENINGS = 4  # each widens the pilot grid by 1e3 on the side where the VaR was missed
+
+
 def _pilot_vars(name: str, portfolio: Portfolio, q: np.ndarray, seed: int) -> list[float]:
+    vars_, below = _pilot_search(name, portfolio, q, seed)
+    _refuse_negative_var(portfolio, below)
+    return vars_
+
+
+def _pilot_search(name: str, portfolio: Portfolio, q: np.ndarray, seed: int
+                  ) -> tuple[list[float], list[int]]:
+    """Pilot VaRs on a log grid that follows the tail: widened (by 1e3 a side, at most four
+    times) until every level's VaR is bracketed; a level still unbracketed keeps its guess
+    (its final figure is then flagged by the main run's own bracketing check)."""
     guesses = [guess_var(portfolio, float(level)) for level in q]
-    a = np.geomspace(max(min(guesses) / 20.0, 1e-9), max(guesses) * 20.0, 160)
-    if portfolio.dependence is not None:
-        values = _dependent_values(name, portfolio, a, guesses, seed,
-                                   euler=np.zeros(0, np.int64))
-        stream_name = name
-    else:
-        pilot = registry.get(registry.get(name).grid_pilot or name)
-        values = pilot.contributions(portfolio, a, guesses, seed)
-        stream_name = pilot.stream
-    stats_ = ContributionStats.from_samples(
-        values(PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, stream_name).rng(seed, 0)))
-    curves = _Curves(a, stats_)
-    out = []
-    for level, guess in zip(q, guesses, strict=True):
-        v = curves.var(float(level))[0]
-        out.append(v if v is not None else guess)
-    return out
+    lo, hi = _anchor_span(portfolio, q)
+    out: list[float | None] = [None] * q.size
+    low_side: list[int] = []
+    for widening in range(_PILOT_WIDENINGS + 1):
+        a = _pilot_grid(lo, hi)
+        if portfolio.dependence is not None:
+            values = _dependent_values(name, portfolio, a, guesses, seed,
+                                       euler=np.zeros(0, np.int64))
+            stream_name = name
+        else:
+            pilot = registry.get(registry.get(name).grid_pilot or name)
+            values = pilot.contributions(portfolio, a, guesses, seed)
+            stream_name = pilot.stream
+        stats_ = ContributionStats.from_samples(values(
+            PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, stream_name).rng(seed, widening)))
+        curves = _Curves(a, stats_)
+        low_side = []
+        above = False
+        for i, level in enumerate(q):
+            v = curves.var(float(level))[0]
+            out[i] = v
+            if v is None:
+                # P(S > a) above 1 - q everywhere: the VaR is past the top; else below
+                if curves.p[-1] >= 1.0 - float(level):
+                    above = True
+                else:
+                    low_side.append(i)
+        if not (low_side or above) or (lo <= 1e-12 and not above):
+            break
+        lo, hi = (lo / 1e3 if low_side else lo), (hi * 1e3 if above else hi)
+        lo = max(lo, 1e-12)
+    return [v if v is not None else g for v, g in zip(out, guesses, strict=True)], low_side
 
 
 def tail_estimates(

@@ -29,6 +29,13 @@ SAMPLES = 20_000
 
 Bounds = list[tuple[float, float, float]]
 
+# Every reliable estimate compared with the bounds is recorded here; the last test of the file
+# fails when fewer than MIN_COMPARISONS were made, so a change that flags (and so skips) most
+# estimates cannot pass unnoticed (issue 12). A full run of this file made 72 comparisons when
+# this was written; the floor leaves room for a few more flags, not for most of them.
+COMPARED: list[tuple[str, str, float]] = []
+MIN_COMPARISONS = 60
+
 
 @functools.cache
 def thresholds_and_bounds(key: str) -> tuple[list[float], Bounds]:
@@ -77,5 +84,13 @@ def test_estimates_within_recursion_bounds(panel_case, method):
         if not est.diagnostics.reliable:
             continue  # flagged: the estimate itself says its error bar is not to be trusted
         se = est.std_error
+        COMPARED.append((case.key, method, est.threshold))
         assert lower - 4 * se <= est.probability <= upper + 4 * se, (
             case.key, est.threshold, est.probability, se, lower, upper)
+
+
+def test_enough_reliable_comparisons_were_made():
+    # Runs last in this file (pytest keeps definition order); run the whole file, not -k.
+    assert len(COMPARED) >= MIN_COMPARISONS, (
+        f"only {len(COMPARED)} reliable estimates were compared with the bounds "
+        f"(at least {MIN_COMPARISONS} expected)")

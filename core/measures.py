@@ -183,7 +183,8 @@ def tail_estimates(
     seed = check_seed(seed)
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
-    if method != registry.AUTO and registry.get(method).deterministic:
+    if (method != registry.AUTO and method in registry.names()
+            and registry.get(method).deterministic):
         if portfolio.dependence is not None:
             raise MethodError("method", f"{method} does not apply to a dependent portfolio "
                                         "(portfolio.dependence): no rigorous bounds for a "
@@ -340,14 +341,16 @@ def _run(name: str, portfolio: Portfolio, a: np.ndarray, q: np.ndarray, layers: 
     if portfolio.dependence is not None:
         values = _dependent_values(name, portfolio, points, anchors, seed,
                                    euler=euler_points(portfolio, g=a.size))
+        stream_name = f"dependent:{name}"
     else:
         values = registry.get(name).contributions(portfolio, points, anchors, seed)
+        stream_name = registry.get(name).stream
     g, e = a.size, len(extra)
     block = layout_block(values, g, layers, losses)
     group = Group((0,), block, work_per_sample(portfolio.expected_claims, 2 * (g + e)), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     error_of = _var_error(q, a) if q.size else _layer_error(g)
     run = run_group(group, block_size(portfolio), precision, seed,
-                    Stream(Purpose.MEASURE_SAMPLES, registry.get(name).stream), deadline,
+                    Stream(Purpose.MEASURE_SAMPLES, stream_name), deadline,
                     error_of=error_of)
     return _Curves(a, run.stats), run

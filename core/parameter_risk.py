@@ -30,7 +30,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from core.errors import ParameterError, TailgaugeError
-from core.fitting.model import model_of
+from core.fitting.lookup import model_of
 from core.portfolio import Portfolio
 
 Floats = NDArray[np.float64]

@@ -7,7 +7,8 @@ import math
 import numpy as np
 from scipy import stats
 
-from core import Line, Lognormal, MethodError, Normal, Poisson, Portfolio, Precision, exceedance
+from core import Line, Lognormal, MethodError, Normal, Poisson, Portfolio, Precision
+from core import estimate_exceedance as exceedance
 from core.measures import tail_estimates
 
 

@@ -18,12 +18,14 @@ from client._errors import ErrorDetail, RequestRejected, error_for
 from client._retry import retry_after_seconds
 from client._tables import (
     ExceedanceResult,
+    FitResult,
     LayersResult,
     RiskMeasuresResult,
     RuinResult,
     RunResult,
 )
 from service.schemas.exceedance import ExceedanceRequest
+from service.schemas.fit import FitRequest
 from service.schemas.layers import LayersRequest
 from service.schemas.risk_measures import RiskMeasuresRequest
 from service.schemas.ruin import RuinRequest
@@ -109,6 +111,11 @@ def layers(**fields: Any) -> Call[LayersResult]:
 def ruin(**fields: Any) -> Call[RuinResult]:
     return Call("POST", "/v1/ruin", _reader(RuinResult),
                 body=_body(RuinRequest, {k: _as_dict(v) for k, v in fields.items()}))
+
+
+def fit(**fields: Any) -> Call[FitResult]:
+    return Call("POST", "/v1/fit", _reader(FitResult),
+                body=_body(FitRequest, {k: _as_dict(v) for k, v in fields.items()}))
 
 
 def batch_body(batch: RunBatchIn | Mapping[str, Any]) -> Any:

@@ -24,16 +24,8 @@ import numpy as np
 from scipy import stats
 
 from bench import references
-from core import (
-    Fixed,
-    Line,
-    Lognormal,
-    NegativeBinomial,
-    Portfolio,
-    Precision,
-    Weibull,
-    exceedance,
-)
+from core import Fixed, Line, Lognormal, NegativeBinomial, Portfolio, Precision, Weibull
+from core.exceedance import exceedance
 
 
 @dataclass(frozen=True)

@@ -19,12 +19,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests" / "reference"))
 
-from credit_references import one_factor_t_tail, one_factor_tail  # noqa: E402
+from credit_references import one_factor_t_tail, one_factor_tail
 
-from core.credit.exceedance import credit_exceedance  # noqa: E402
-from core.credit.measures import credit_tail, guess_var  # noqa: E402
-from core.credit.model import CreditModel, group  # noqa: E402
-from core.precision import Precision  # noqa: E402
+from core.credit.exceedance import credit_exceedance
+from core.credit.measures import credit_tail, guess_var
+from core.credit.model import CreditModel, group
+from core.precision import Precision
 
 SEED = 20260
 

@@ -50,8 +50,9 @@ from core import (
     Poisson,
     Portfolio,
     Precision,
-    exceedance,
 )
+from core.estimators import registry
+from core.exceedance import exceedance
 from core.recursion import exceedance_bounds
 
 OUT = Path(__file__).resolve().parent / "out"
@@ -137,15 +138,14 @@ CASES: tuple[Case, ...] = (
 )
 
 
+# The Monte Carlo estimators of the registry, then auto (the columns of the tables).
+ESTIMATORS = (*(e.name for e in registry.estimators() if not e.deterministic), "auto")
+
+
 def methods_for(portfolio: Portfolio) -> list[str]:
-    """The estimators that apply: conditional needs a line without a per-claim limit, tilting a
-    light-tailed portfolio; crude and auto always."""
-    out = ["crude"]
-    if any(line.limit is None for line in portfolio.lines):
-        out += ["conditional", "conditional_is"]
-    if portfolio.is_light:
-        out.append("tilted")
-    return out + ["auto"]
+    """The Monte Carlo estimators that apply (each says so itself: conditional needs a line
+    without a per-claim limit, tilting a light-tailed portfolio), and auto."""
+    return [m for m in ESTIMATORS[:-1] if registry.get(m).applies(portfolio)] + ["auto"]
 
 
 # ------------------------------------------------------------------------ thresholds
@@ -585,9 +585,6 @@ def _cell_ratio(ratio: float | None, bound: bool) -> str:
     if not math.isfinite(ratio) or ratio == 0.0:
         return "-"
     return (">=" if bound else "") + f"{ratio:.3g}"
-
-
-ESTIMATORS = ("crude", "conditional", "conditional_is", "tilted", "auto")
 
 
 def tables(rows: Sequence[Row], samples: int, extra: dict[str, Any]) -> str:

@@ -17,9 +17,9 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import matplotlib.pyplot as plt  # noqa: E402 - the backend must be chosen first
-from matplotlib.ticker import NullFormatter  # noqa: E402
-from PIL import Image  # noqa: E402 - matplotlib depends on Pillow
+import matplotlib.pyplot as plt
+from matplotlib.ticker import NullFormatter
+from PIL import Image
 
 STYLE = {"crude": "C0", "conditional": "C1", "conditional_is": "C2", "tilted": "C3",
          "auto": "k"}

@@ -46,8 +46,7 @@ def _cell_masses(cdf: Callable[[np.ndarray], np.ndarray], h: float, cells: int,
     return pmf
 
 
-def partial_mean(dist: stats.rv_continuous, shift: float = 0.0
-                 ) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
+def partial_mean(dist: stats.rv_continuous) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
     """E[X; a < X <= b] by Gauss-Legendre quadrature on each cell (20 nodes), with the cell
     mass used to anchor it; exact enough for cells where the density is smooth or integrable."""
     nodes, weights = np.polynomial.legendre.leggauss(20)
@@ -86,8 +85,8 @@ def ak_reference(dist: stats.rv_continuous, x: float, h: float, count: str, n: f
         mean_n, others, rest = n * beta, ("nb", n + 1), ("nb", n + 2)
         rest_mean = (n + 1) * beta
     half = x / 2.0
-    cells = int(math.ceil(half / h)) + 1
-    size = 1 << int(math.ceil(math.log2(4 * cells)))
+    cells = math.ceil(half / h) + 1
+    size = 1 << math.ceil(math.log2(4 * cells))
     claim = _cell_masses(dist.cdf, h, size // 2 - 1, partial_mean(dist))
     s = np.arange(size) * h
     law = compound_pmf(claim, size, others[0], others[1], beta)
@@ -132,8 +131,8 @@ def fixed_lognormal_tail(n: int, mu: float, sigma: float, x: float, h: float) ->
     the integrand is smooth except for the kink at S_{n-1} = x, where S_{n-1} has little
     mass, so the error is of second order in h."""
     dist = stats.lognorm(sigma, scale=math.exp(mu))
-    cells = int(math.ceil(4 * x / h))
-    size = 1 << int(math.ceil(math.log2(2 * cells)))
+    cells = math.ceil(4 * x / h)
+    size = 1 << math.ceil(math.log2(2 * cells))
     claim = _cell_masses(dist.cdf, h, size // 2 - 1, partial_mean(dist))
     law = compound_pmf(claim, size, "fixed", n - 1)
     s = np.arange(size) * h

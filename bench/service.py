@@ -28,7 +28,8 @@ from typing import Any
 
 import httpx
 
-from core import Line, Lognormal, Poisson, Portfolio, Precision, exceedance
+from core import Line, Lognormal, Poisson, Portfolio, Precision
+from core.exceedance import exceedance
 
 OUT = Path(__file__).resolve().parent / "out"
 THRESHOLDS = [300.0, 1500.0]
@@ -122,7 +123,8 @@ def overhead(base: str, samples: int, repeats: int) -> dict[str, Any]:
             "engine_in_server_s": statistics.median(engine), "ratio": http / direct}
 
 
-async def _load(base: str, body: dict[str, Any], concurrency: int, seconds: float) -> dict:
+async def _load(base: str, body: dict[str, Any], concurrency: int, seconds: float
+                ) -> dict[str, Any]:
     done = failed = 0
     stop = time.perf_counter() + seconds
 

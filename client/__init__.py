@@ -27,6 +27,7 @@ from client._retry import RetryPolicy
 from client._sync import Client
 from client._tables import (
     ExceedanceResult,
+    FitResult,
     LayersResult,
     RiskMeasuresResult,
     RuinResult,
@@ -39,6 +40,7 @@ __all__ = [
     "Conflict",
     "ErrorDetail",
     "ExceedanceResult",
+    "FitResult",
     "LayersResult",
     "NotAuthorized",
     "NotFound",

@@ -16,6 +16,7 @@ from client._errors import RunWaitTimeout, TransportFailed
 from client._retry import RETRYABLE_TRANSPORT, RetryPolicy, retry_after_seconds
 from client._tables import (
     ExceedanceResult,
+    FitResult,
     LayersResult,
     RiskMeasuresResult,
     RuinResult,
@@ -116,6 +117,18 @@ class AsyncClient:
             process=process, capital=capital, horizon=horizon,
             target_probability=target_probability, method=method, precision=precision,
             seed=seed), timeout_s)
+
+    async def fit(self, *, claims: Sequence[float], reporting_threshold: float | None = None,
+              censored_at: Sequence[float | None] | None = None,
+              families: Sequence[str] | None = None, tail_threshold: float | None = None,
+              counts: Sequence[int] | None = None, exposures: Sequence[float] | None = None,
+              bootstrap: Any = None, seed: int | None = None,
+              timeout_s: float | None = None) -> FitResult:
+        """POST /v1/fit: severity (and count) laws fitted to loss data."""
+        return await self._run(calls.fit(
+            claims=claims, reporting_threshold=reporting_threshold, censored_at=censored_at,
+            families=families, tail_threshold=tail_threshold, counts=counts,
+            exposures=exposures, bootstrap=bootstrap, seed=seed), timeout_s)
 
     async def health(self) -> dict[str, Any]:
         return await self._run(calls.health())

@@ -18,12 +18,14 @@ from client._errors import ErrorDetail, RequestRejected, error_for
 from client._retry import retry_after_seconds
 from client._tables import (
     ExceedanceResult,
+    FitResult,
     LayersResult,
     RiskMeasuresResult,
     RuinResult,
     RunResult,
 )
 from service.schemas.exceedance import ExceedanceRequest
+from service.schemas.fit import FitRequest
 from service.schemas.layers import LayersRequest
 from service.schemas.risk_measures import RiskMeasuresRequest
 from service.schemas.ruin import RuinRequest
@@ -74,7 +76,7 @@ def _reader(model: type[T]) -> Callable[[httpx.Response], T]:
 def _body(schema: type[BaseModel], fields: Mapping[str, Any]) -> Any:
     """The JSON body, validated first with the server's own request schema so that a wrong
     field fails here with the same detail the server would give."""
-    given = {key: value for key, value in fields.items() if value is not None}
+    given = {key: _as_dict(value) for key, value in fields.items() if value is not None}
     try:
         model = schema.model_validate(given)
     except ValidationError as exc:
@@ -93,22 +95,27 @@ def _as_dict(value: Any) -> Any:
 
 def exceedance(**fields: Any) -> Call[ExceedanceResult]:
     return Call("POST", "/v1/exceedance", _reader(ExceedanceResult),
-                body=_body(ExceedanceRequest, {k: _as_dict(v) for k, v in fields.items()}))
+                body=_body(ExceedanceRequest, fields))
 
 
 def risk_measures(**fields: Any) -> Call[RiskMeasuresResult]:
     return Call("POST", "/v1/risk-measures", _reader(RiskMeasuresResult),
-                body=_body(RiskMeasuresRequest, {k: _as_dict(v) for k, v in fields.items()}))
+                body=_body(RiskMeasuresRequest, fields))
 
 
 def layers(**fields: Any) -> Call[LayersResult]:
     return Call("POST", "/v1/layers", _reader(LayersResult),
-                body=_body(LayersRequest, {k: _as_dict(v) for k, v in fields.items()}))
+                body=_body(LayersRequest, fields))
 
 
 def ruin(**fields: Any) -> Call[RuinResult]:
     return Call("POST", "/v1/ruin", _reader(RuinResult),
-                body=_body(RuinRequest, {k: _as_dict(v) for k, v in fields.items()}))
+                body=_body(RuinRequest, fields))
+
+
+def fit(**fields: Any) -> Call[FitResult]:
+    return Call("POST", "/v1/fit", _reader(FitResult),
+                body=_body(FitRequest, fields))
 
 
 def batch_body(batch: RunBatchIn | Mapping[str, Any]) -> Any:

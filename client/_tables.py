@@ -12,6 +12,7 @@ from typing import Any
 from pydantic import BaseModel
 
 from service.schemas.exceedance import ExceedanceResponse
+from service.schemas.fit import FitResponse
 from service.schemas.layers import LayersResponse
 from service.schemas.risk_measures import RiskMeasuresResponse
 from service.schemas.ruin import RuinResponse
@@ -19,6 +20,7 @@ from service.schemas.runs import RunItemDone, RunOut
 
 __all__ = [
     "ExceedanceResult",
+    "FitResult",
     "LayersResult",
     "RiskMeasuresResult",
     "RuinResult",
@@ -88,11 +90,28 @@ class RuinResult(RuinResponse, Tabular):
         return [{**_common(self), **_flatten(e)} for e in self.estimates]
 
 
+class FitResult(FitResponse, Tabular):
+    """One row per fitted severity family: parameters, errors, criteria and test p-values."""
+
+    def to_rows(self) -> list[Row]:
+        rows = []
+        for fit in self.fits:
+            row: Row = {"family": fit.family, "log_likelihood": fit.log_likelihood,
+                        "aic": fit.aic, "bic": fit.bic}
+            row.update({f"param_{k}": v for k, v in fit.parameters.items()})
+            row.update({f"se_{k}": v for k, v in fit.std_errors.items()})
+            row.update({f"{name}_p_value": getattr(fit.tests, name).p_value
+                        for name in ("ks", "cvm", "ad")})
+            rows.append(row)
+        return rows
+
+
 RESULT_BY_KIND: dict[str, type[Tabular]] = {
     "exceedance": ExceedanceResult,
     "risk_measures": RiskMeasuresResult,
     "layers": LayersResult,
     "ruin": RuinResult,
+    "fit": FitResult,
 }
 
 

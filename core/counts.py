@@ -22,6 +22,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
 from core.errors import ParameterError
+from core.validate import ByFields
 from core.validate import integer as _integer
 from core.validate import positive as _positive
 from core.validate import real as _real
@@ -46,26 +47,10 @@ def _check_q(q: float) -> float:
     return value
 
 
-class ClaimCount(abc.ABC):
+class ClaimCount(ByFields, abc.ABC):
     """The number of claims in a period. Laws compare, hash and print by their parameters."""
 
     kind: ClassVar[str]
-    _fields: ClassVar[tuple[str, ...]]
-
-    def _values(self) -> tuple[float, ...]:
-        return tuple(getattr(self, name) for name in self._fields)
-
-    def __repr__(self) -> str:
-        args = ", ".join(f"{n}={v!r}" for n, v in zip(self._fields, self._values(), strict=True))
-        return f"{type(self).__name__}({args})"
-
-    def __eq__(self, other: object) -> bool:
-        if not isinstance(other, ClaimCount) or type(other) is not type(self):
-            return False
-        return self._values() == other._values()
-
-    def __hash__(self) -> int:
-        return hash((self.kind, self._values()))
 
     def __setattr__(self, name: str, value: object) -> None:
         if name in self.__dict__ or not name.startswith("_"):
@@ -221,6 +206,7 @@ class Fixed(ClaimCount):
         return s * self.n
 
     def _sample(self, size: int | tuple[int, ...], rng: np.random.Generator) -> NDArray[Any]:
+        del rng  # a fixed count draws nothing
         return np.full(size, self.n, dtype=np.int64)
 
     def tilted(self, s: float) -> ClaimCount:

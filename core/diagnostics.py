@@ -81,7 +81,7 @@ def psis_tail_size(n: int) -> int:
     """
     if isinstance(n, bool) or not isinstance(n, int | np.integer) or n < 0:
         raise ParameterError("n", f"must be a non-negative integer, got {n!r}")
-    return int(math.ceil(min(0.2 * n, 3.0 * math.sqrt(n))))
+    return math.ceil(min(0.2 * n, 3.0 * math.sqrt(n)))
 
 
 def pareto_khat(tail_values: np.ndarray, threshold: float) -> float:
@@ -204,13 +204,9 @@ class ContributionStats:
             chunk_exponent=exponent[None, :],
         )
 
-    def merge(self, other: ContributionStats) -> ContributionStats:
-        """Combine two disjoint sets of chunks; the result does not depend on merge order."""
-        return ContributionStats.combine([self, other])
-
     @classmethod
     def combine(cls, parts: Sequence[ContributionStats]) -> ContributionStats:
-        """Merge many accumulators at once (cheaper than a chain of `merge` calls)."""
+        """Merge accumulators of disjoint chunks; the result does not depend on their order."""
         if len(parts) == 0:
             raise ParameterError("parts", "need at least one accumulator")
         first = parts[0]
@@ -267,11 +263,6 @@ class ContributionStats:
         """Number T of estimates summarised."""
         return int(self.hits.size)
 
-    @property
-    def chunk_sums(self) -> FloatArray:
-        """Sum of the contributions of each chunk, shape (chunks, T), in chunk order."""
-        return np.ldexp(self.chunk_mean * self.chunk_count[:, None], self.chunk_exponent)
-
     def mean(self) -> FloatArray:
         """The estimates: mean contribution per column, shape (T,)."""
         t = self._totals
@@ -291,31 +282,6 @@ class ContributionStats:
         squares = t.m2 + self.n * t.mean**2
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(squares > 0, total**2 / squares, 0.0)
-
-    def ci(
-        self, *, upper_clip: float = math.inf, level: float = 0.95, max_contribution: float = 1.0
-    ) -> tuple[FloatArray, FloatArray]:
-        """Normal interval mean +- z se at `level`, clipped to [0, upper_clip].
-
-        With no hits the normal interval would be the meaningless 0 +- 0; it becomes the
-        one-sided bound [0, max_contribution * (1 - (1 - level)**(1/n))]: the largest event
-        probability under which seeing no event in n draws still has chance 1 - level (about
-        3/n at 95%, the rule of three), times the largest value one contribution can take on the
-        event (1 for an indicator; the estimator knows it, the accumulator does not).
-        """
-        if not 0 < level < 1:
-            raise ParameterError("level", f"must be in (0, 1), got {level!r}")
-        if not upper_clip >= 0:
-            raise ParameterError("upper_clip", f"must be non-negative, got {upper_clip!r}")
-        if not (max_contribution > 0 and math.isfinite(max_contribution)):
-            raise ParameterError("max_contribution", f"must be positive, got {max_contribution!r}")
-        z = float(stats.norm.ppf(0.5 + level / 2))
-        mean, se = self.mean(), self.std_error()
-        low = np.clip(mean - z * se, 0.0, upper_clip)
-        high = np.clip(mean + z * se, 0.0, upper_clip)
-        bound = max_contribution * -math.expm1(math.log1p(-level) / self.n)
-        high = np.where(self.hits == 0, min(bound, upper_clip), high)
-        return low, high
 
     # -- diagnostics --
     def diagnose(self) -> list[Diagnostics]:

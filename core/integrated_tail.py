@@ -24,6 +24,7 @@ safeguarded Newton iteration on logsf.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, field
 from typing import ClassVar
@@ -195,7 +196,7 @@ class IntegratedTail(Severity):
         marks = [float(base.isf_log(log_sf_x - d)) for d in (1.0, 4.0, 16.0, 64.0)]
         edges = [x, *sorted(m for m in marks if x < m < top), top]
         total = 0.0
-        for a, b in zip(edges[:-1], edges[1:], strict=False):
+        for a, b in itertools.pairwise(edges):
             total += integrate.quad(scaled, a, b, limit=200, epsabs=0.0, epsrel=1e-11)[0]
         return math.log(total) + log_sf_x
 

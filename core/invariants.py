@@ -17,6 +17,7 @@ other zero-width figure is flagged. Only figures the engine knows in closed form
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import math
 from collections.abc import Sequence
 from typing import Any, TypeVar
@@ -103,7 +104,7 @@ def check_monotone(estimates: Sequence[E], at: Sequence[float]) -> tuple[list[E]
     out = list(estimates)
     notes: list[str] = []
     order = sorted(range(len(out)), key=lambda i: at[i])
-    for a, b in zip(order, order[1:], strict=False):
+    for a, b in itertools.pairwise(order):
         if at[a] < at[b] and out[a].ci_high < out[b].ci_low:
             why = (f"invariant violated: P(S > {at[b]:g}) is above P(S > {at[a]:g}) "
                    "with disjoint intervals")
@@ -146,7 +147,7 @@ def check_tail(measures: Sequence[M], layers: Sequence[L]) -> tuple[list[M], lis
             notes.append(f"level {m.level:g}: {why}")
         out_m.append(m)
     ranked = sorted(range(len(out_m)), key=lambda i: out_m[i].level)
-    for a, b in zip(ranked, ranked[1:], strict=False):
+    for a, b in itertools.pairwise(ranked):
         lo, hi = out_m[a], out_m[b]
         if lo.level < hi.level and lo.var.ci_low > hi.var.ci_high:
             why = (f"invariant violated: VaR at {lo.level:g} lies above VaR at {hi.level:g} "

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from core.counts import ClaimCount
+from core.dependence.copula import Copula
 from core.errors import ParameterError
 from core.severities import Capped, Excess, Severity
 
@@ -112,14 +113,25 @@ class Line:
 
 @dataclass(frozen=True, kw_only=True)
 class Portfolio:
-    """Independent lines; S is the sum of their aggregate losses over one period."""
+    """Lines of business; S is the sum of their aggregate losses over one period.
+
+    dependence: None (independent lines, as in version 1) or a copula coupling the lines'
+    aggregate losses, each line keeping its own compound law as marginal.
+    """
 
     lines: Sequence[Line]
+    dependence: Copula | None = None
 
     def __post_init__(self) -> None:
         if len(self.lines) == 0:
             raise ParameterError("lines", "must hold at least one line")
         object.__setattr__(self, "lines", tuple(self.lines))
+        dep = self.dependence
+        if dep is not None and dep.dim != len(self.lines):
+            raise ParameterError(
+                "portfolio.dependence.correlation",
+                f"must be {len(self.lines)} x {len(self.lines)} (one row and column per line), "
+                f"got {dep.dim} rows")
 
     @property
     def mean(self) -> float:

@@ -13,7 +13,8 @@ import numpy as np
 from core.diagnostics import ContributionStats
 from core.errors import ParameterError
 from core.estimators.base import Group
-from core.sampling import MAIN, block_rng, blocks
+from core.sampling import blocks
+from core.streams import Stream
 
 DEFAULT_SAMPLES = 100_000
 DEFAULT_MAX_SAMPLES = 2_000_000
@@ -76,7 +77,7 @@ def _worst_relative_error(stats: ContributionStats) -> float:
 
 
 def run_group(
-    group: Group, block: int, precision: Precision, seed: int, group_id: int,
+    group: Group, block: int, precision: Precision, seed: int, stream: Stream,
     deadline: float | None,
     error_of: Callable[[ContributionStats], float] = _worst_relative_error,
 ) -> GroupRun:
@@ -88,7 +89,7 @@ def run_group(
     target = precision.relative_error
     while True:
         for b, m in blocks(next_check - done, block, start=index):
-            values = group.block_values(m, block_rng(seed, MAIN, group_id, b))
+            values = group.block_values(m, stream.rng(seed, b))
             parts.append(ContributionStats.from_samples(values, top_k=TOP_K, chunk=b))
             done, index = done + m, b + 1
             if deadline is not None and time.monotonic() > deadline:

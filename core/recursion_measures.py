@@ -19,17 +19,10 @@ import numpy as np
 
 from core.discretise import Grid, Lattice
 from core.errors import LimitError, MethodError
-from core.measures import (
-    Interval,
-    Layer,
-    LayerEstimate,
-    MeasureEstimate,
-    TailResult,
-    guess_var,
-)
+from core.levels import Layer, guess_var
 from core.portfolio import Portfolio
 from core.recursion import aggregate
-from core.results import Diagnostics
+from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
 
 DEFAULT_CELLS = 16_384
 
@@ -64,12 +57,6 @@ def _exceed(low: Lattice, up: Lattice, h: float, x: float) -> tuple[float, float
     above = min(math.ceil(ratio - 1e-12), low.cells)
     below = max(math.floor(ratio + 1e-12), 0)
     return low.exceedance(above), up.exceedance(below)
-
-
-def _diag(cells: int) -> Diagnostics:
-    return Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                       batch_ratio=None, reliable=True,
-                       reason=f"deterministic bounds on a grid of {cells} cells")
 
 
 def _rounded_means(portfolio: Portfolio, h: float, cells: int) -> tuple[float, float]:
@@ -115,6 +102,7 @@ def tail_bounds(
     low = aggregate(portfolio, grid, "down")
     near = aggregate(portfolio, grid, "nearest")
     mean_low, mean_up = _rounded_means(portfolio, h, cells)
+    diag = Diagnostics.on_grid(cells)
     measures = []
     for q in levels:
         q = float(q)
@@ -125,7 +113,7 @@ def tail_bounds(
         es_pt = min(max(v_pt + _stop_loss(near, h, v_pt, mean) / (1.0 - q), es_lo), es_up)
         measures.append(MeasureEstimate(
             level=q, var=Interval(value=v_pt, ci_low=v_lo, ci_high=v_up),
-            tvar=Interval(value=es_pt, ci_low=es_lo, ci_high=es_up), diagnostics=_diag(cells)))
+            tvar=Interval(value=es_pt, ci_low=es_lo, ci_high=es_up), diagnostics=diag))
     out_layers = []
     for ly in layers:
         a, lim = ly.attachment, ly.limit
@@ -145,7 +133,7 @@ def tail_bounds(
             expected_loss=Interval(value=min(max(el_pt, el_lo), el_up), ci_low=el_lo,
                                    ci_high=el_up),
             probability_attach=Interval(value=0.5 * (p_lo + p_up), ci_low=p_lo, ci_high=p_up),
-            probability_exhaust=exhaust, diagnostics=_diag(cells)))
+            probability_exhaust=exhaust, diagnostics=diag))
     loss_out = []
     for x in losses:
         p_lo, p_up = _exceed(low, up, h, float(x))

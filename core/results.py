@@ -27,6 +27,18 @@ class Diagnostics:
     reason: str
     exact: bool = False
 
+    @classmethod
+    def deterministic(cls, reason: str, *, exact: bool = False) -> Diagnostics:
+        """The record of a figure that was not sampled: rigorous bounds, or (exact) a closed
+        form."""
+        return cls(pareto_k=None, effective_samples=0.0, largest_share=None, batch_ratio=None,
+                   reliable=True, reason=reason, exact=exact)
+
+    @classmethod
+    def on_grid(cls, cells: int) -> Diagnostics:
+        """Deterministic bounds from the recursion on a grid of `cells` cells."""
+        return cls.deterministic(f"deterministic bounds on a grid of {cells} cells")
+
 
 @dataclass(frozen=True, kw_only=True)
 class Estimate:
@@ -107,4 +119,65 @@ class RuinResult:
     lundberg_constant: float | None
     estimates: list[RuinEstimate]
     capital_for_target: CapitalForTarget | None = None
+    warnings: list[str] = field(default_factory=list)
+
+
+@dataclass(frozen=True, kw_only=True)
+class Interval:
+    """A figure with its 95% interval (std_error None where it is not a mean of samples)."""
+
+    value: float
+    ci_low: float
+    ci_high: float
+    std_error: float | None = None
+
+
+@dataclass(frozen=True, kw_only=True)
+class Contribution:
+    """A line's Euler allocation of TVaR, E[S_i | S > VaR], scaled so the lines sum to TVaR."""
+
+    label: str
+    tvar_contribution: float
+    ci_low: float
+    ci_high: float
+
+
+@dataclass(frozen=True, kw_only=True)
+class MeasureEstimate:
+    """VaR and TVaR at one level (with per-line TVaR contributions where computed)."""
+
+    level: float
+    var: Interval
+    tvar: Interval
+    diagnostics: Diagnostics
+    contributions: list[Contribution] = field(default_factory=list)
+
+
+@dataclass(frozen=True, kw_only=True)
+class LayerEstimate:
+    """An aggregate layer's expected loss and its attachment and exhaustion probabilities."""
+
+    attachment: float
+    limit: float | None
+    expected_loss: Interval
+    probability_attach: Interval
+    probability_exhaust: Interval | None
+    diagnostics: Diagnostics
+
+
+@dataclass(frozen=True, kw_only=True)
+class TailResult:
+    """Risk measures, layers and loss exceedance from one sample set (or recursion bounds)."""
+
+    method: str
+    method_reason: str
+    seed: int
+    elapsed_s: float
+    stopped_by: str
+    samples: int
+    mean: float
+    std_dev: float
+    measures: list[MeasureEstimate] = field(default_factory=list)
+    layers: list[LayerEstimate] = field(default_factory=list)
+    loss_exceedance: list[Interval] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)

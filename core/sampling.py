@@ -1,9 +1,8 @@
 """Block plan, seeds and the vectorised portfolio sampler shared by every estimator.
 
-Randomness is tied to fixed-size blocks of samples, not to chunks or workers: block b of stream
-(purpose, group) always draws from SeedSequence(seed, spawn_key=(purpose, group, b)). The block
-size depends on the model only, so the same seed and request give the same answer however the
-work is split.
+Randomness is tied to fixed-size blocks of samples, not to chunks or workers: block b of a
+stream (core.streams) always draws from the same SeedSequence. The block size depends on the
+model only, so the same seed and request give the same answer however the work is split.
 """
 
 from __future__ import annotations
@@ -24,7 +23,6 @@ from core.severities import Severity
 _CLAIMS_PER_BLOCK = 1 << 20
 _MIN_BLOCK, _MAX_BLOCK = 64, 8192
 
-MAIN, PILOT = 0, 1
 # A guard against proposals (or models) that would need more memory than a block allows.
 MAX_CLAIMS_PER_BLOCK = 1 << 26
 
@@ -33,12 +31,8 @@ def block_size(portfolio: Portfolio) -> int:
     """Samples per block: as many as keep about 1M claims in memory, a power of two."""
     per_sample = max(1.0, portfolio.expected_claims)
     size = _CLAIMS_PER_BLOCK / per_sample
-    size = 2 ** int(math.floor(math.log2(max(size, 1.0))))
+    size = 2 ** math.floor(math.log2(max(size, 1.0)))
     return int(min(_MAX_BLOCK, max(_MIN_BLOCK, size)))
-
-
-def block_rng(seed: int, purpose: int, group: int, block: int) -> np.random.Generator:
-    return np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(purpose, group, block)))
 
 
 def blocks(total: int, size: int, start: int = 0) -> Iterator[tuple[int, int]]:

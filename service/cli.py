@@ -5,16 +5,16 @@ from __future__ import annotations
 import argparse
 import asyncio
 import json
-import os
+import math
 import sys
-import tempfile
 import time
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, TextIO
 
 from pydantic import ValidationError
 
+from service.results_file import OutputError, ResultsFile
 from service.settings import Settings
 
 if TYPE_CHECKING:
@@ -39,11 +39,16 @@ def _parser() -> argparse.ArgumentParser:
     run = commands.add_parser(
         "run", help="run a batch file (the body of POST /v1/runs) without a server",
         description="Exit status: 0 every item done, 1 some item failed (the others are in "
-        "the output), 2 the batch could not be read or is malformed.",
+        "the output), 2 the batch could not be read or is malformed, or --out cannot be "
+        "written (checked before any work). --out is replaced atomically (a temporary file "
+        "renamed over it; through a symlink, the file it points to); a device or FIFO is "
+        "written in place.",
     )
     run.add_argument("batch", type=Path, metavar="BATCH.json")
     run.add_argument("--out", type=Path, required=True, metavar="RESULTS.json",
                      help="where to write the results (the body of GET /v1/runs/{run_id})")
+    run.add_argument("--report", type=Path, metavar="REPORT.html",
+                     help="also write the run report: one self-contained HTML page")
     run.add_argument("--workers", type=int, help="size of the computation pool")
     return parser
 
@@ -51,7 +56,9 @@ def _parser() -> argparse.ArgumentParser:
 def _serve(args: argparse.Namespace) -> int:
     import uvicorn
 
+    from service import datadir
     from service.app import create_app
+    from service.auth import AuthConfigError, load_auth
 
     given = {"host": args.host, "port": args.port, "data_dir": args.data_dir,
              "workers": args.workers}
@@ -60,7 +67,18 @@ def _serve(args: argparse.Namespace) -> int:
     except ValidationError as exc:
         print(f"tailgauge serve: invalid settings:\n{exc}", file=sys.stderr)
         return 2
-    uvicorn.run(create_app(settings), host=settings.host, port=settings.port)
+    # Every start-up problem is one line and exit 2, before the server listens.
+    try:
+        load_auth(settings)
+        lock = datadir.check(settings)  # held while the server runs: one server per data dir
+    except (AuthConfigError, datadir.DataDirError) as exc:
+        print(f"tailgauge serve: {exc}", file=sys.stderr)
+        return 2
+    try:
+        uvicorn.run(create_app(settings, exit_on_start_failure=True), host=settings.host,
+                    port=settings.port)
+    finally:
+        lock.release()
     return 0
 
 
@@ -119,16 +137,62 @@ class ProgressReport:
         print(f"tailgauge run: {text}", file=self.stream, flush=True)
 
 
+class _NonFinite(str):
+    """A number JSON gave that no double holds (NaN, Infinity, 1e999): its literal text."""
+
+
+def _parse_float(text: str) -> float | _NonFinite:
+    value = float(text)
+    return value if math.isfinite(value) else _NonFinite(text)
+
+
+def _parse_int(text: str) -> int | _NonFinite:
+    value = int(text)
+    return value if abs(value) <= sys.float_info.max else _NonFinite(text)
+
+
+def _non_finite(value: Any, loc: tuple[str | int, ...] = ()) -> Iterator[
+        tuple[tuple[str | int, ...], str]]:
+    if isinstance(value, _NonFinite):
+        yield loc, str(value)
+    elif isinstance(value, dict):
+        for key, child in value.items():
+            yield from _non_finite(child, (*loc, key))
+    elif isinstance(value, list):
+        for index, child in enumerate(value):
+            yield from _non_finite(child, (*loc, index))
+
+
+def _finite_problems(body: Any) -> list[dict[str, Any]]:
+    """Every non-finite number of the batch, named by item and field."""
+    problems = []
+    for loc, literal in _non_finite(body):
+        where = _where(loc)
+        items = body.get("items") if isinstance(body, dict) else None
+        if len(loc) >= 2 and loc[0] == "items" and isinstance(items, list):
+            item = items[int(loc[1])]
+            item_id = item.get("id") if isinstance(item, dict) else None
+            if isinstance(item_id, str):
+                where = f"item '{item_id}' (items[{loc[1]}]): {_where(loc[2:])}"
+        problems.append({"loc": [where], "msg": f"{literal} is not a finite number (NaN, "
+                         "Infinity and magnitudes beyond 1.8e308 are refused)"})
+    return problems
+
+
 def _read_batch(path: Path, stream: TextIO) -> RunBatchIn | None:
     from service.schemas.runs import RunBatchIn
 
     try:
-        body = json.loads(path.read_text(encoding="utf-8"))
+        body = json.loads(path.read_text(encoding="utf-8"), parse_float=_parse_float,
+                          parse_int=_parse_int, parse_constant=_NonFinite)
     except OSError as exc:
         print(f"tailgauge run: cannot read {path}: {exc.strerror}", file=stream)
         return None
     except ValueError as exc:  # not JSON, or not UTF-8
         print(f"tailgauge run: {path} is not a JSON file: {exc}", file=stream)
+        return None
+    if problems := _finite_problems(body):
+        _rejected(path, problems, stream)
         return None
     try:
         return RunBatchIn.model_validate(body)
@@ -144,18 +208,9 @@ def _rejected(path: Path, detail: list[dict[str, Any]], stream: TextIO) -> None:
         print(f"  {_where(loc)}: {entry['msg']}", file=stream)
 
 
-def _write_atomically(path: Path, body: dict[str, Any]) -> None:
-    # A reader (the next job in the schedule) sees the old file or the whole new one.
-    path.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.")
-    with os.fdopen(handle, "w", encoding="utf-8") as out:
-        json.dump(body, out, indent=2, allow_nan=False)
-        out.write("\n")
-    os.replace(temporary, path)
-
-
 async def run_batch_file(
-    batch_path: Path, out_path: Path, *, settings: Settings, stream: TextIO
+    batch_path: Path, out_path: Path, *, settings: Settings, stream: TextIO,
+    report_path: Path | None = None,
 ) -> int:
     """``tailgauge run``: compute the batch, write the results, return the exit status."""
     from service.worker import BatchRejected, run_locally
@@ -163,14 +218,53 @@ async def run_batch_file(
     batch = _read_batch(batch_path, stream)
     if batch is None:
         return RUN_UNUSABLE
+    # Before any work: an unwritable --out (or --report) must not cost the run.
+    try:
+        out = ResultsFile.open(out_path)
+    except OutputError as exc:
+        print(f"tailgauge run: cannot write the results to {out_path}: {exc}; nothing was "
+              "run", file=stream)
+        return RUN_UNUSABLE
+    report_out: ResultsFile | None = None
+    if report_path is not None:
+        try:
+            report_out = ResultsFile.open(report_path)
+        except OutputError as exc:
+            out.discard()
+            print(f"tailgauge run: cannot write the report to {report_path}: {exc}; nothing "
+                  "was run", file=stream)
+            return RUN_UNUSABLE
     report = ProgressReport(stream)
     try:
         view = await run_locally(batch, settings=settings, on_start=report.start,
                                  on_item=report.item)
     except BatchRejected as exc:
+        out.discard()
+        if report_out is not None:
+            report_out.discard()
         _rejected(batch_path, exc.detail, stream)
         return RUN_UNUSABLE
-    _write_atomically(out_path, view.model_dump(mode="json"))
+    except BaseException:
+        out.discard()
+        if report_out is not None:
+            report_out.discard()
+        raise
+    try:
+        out.write(view.model_dump(mode="json"))
+    except OutputError as exc:
+        if report_out is not None:
+            report_out.discard()
+        print(f"tailgauge run: writing the results to {out_path} failed: {exc}", file=stream)
+        return RUN_UNUSABLE
+    if report_out is not None:
+        from service.report import build_report
+
+        try:
+            report_out.write(build_report(view, batch))
+        except OutputError as exc:
+            print(f"tailgauge run: writing the report to {report_path} failed: {exc}",
+                  file=stream)
+            return RUN_UNUSABLE
     report.finish(view, out_path)
     return RUN_OK if view.status == "done" else RUN_ITEM_FAILED
 
@@ -184,7 +278,7 @@ def _run(args: argparse.Namespace) -> int:
         return RUN_UNUSABLE
     try:
         return asyncio.run(run_batch_file(args.batch, args.out, settings=settings,
-                                          stream=sys.stderr))
+                                          stream=sys.stderr, report_path=args.report))
     except KeyboardInterrupt:
         print("\ntailgauge run: interrupted; no results written", file=sys.stderr)
         return 130

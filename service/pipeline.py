@@ -21,6 +21,7 @@ from typing import Any, Generic, Protocol, TypeVar, cast
 from pydantic import BaseModel
 
 from core.errors import LimitError, TailgaugeError
+from core.parameter_risk import NestedResult
 from service import limits, translate
 from service.executor import ComputePool
 from service.metrics import Metrics
@@ -58,6 +59,7 @@ class EngineCall:
     kwargs: dict[str, Any] = field(default_factory=dict)
     locate: Callable[[TailgaugeError], TailgaugeError] = _keep
     subject: Any = None  # a core object respond() needs besides the result (the process)
+    nested: bool = False  # fn is a parameter-risk form: it returns (result, NestedResult)
 
 
 @dataclass(frozen=True)
@@ -82,6 +84,11 @@ class Resource(Generic[Req, Resp]):
     translate: Callable[[Req, Settings], EngineCall]
     respond: Callable[[Req, Any, EngineCall, list[str]], Resp]
     samples: Callable[[Any], int]
+    # The parameter-risk intervals of a nested call, added to the response in place.
+    attach: Callable[[Req, Resp, NestedResult], None] | None = None
+    # False: the request has no precision (a fit): the server's time limit, no precision
+    # argument, no budget notes.
+    precision: bool = True
 
 
 async def run(resource: Resource[Req, Resp], request: Req, context: Context) -> Resp:
@@ -90,14 +97,33 @@ async def run(resource: Resource[Req, Resp], request: Req, context: Context) -> 
     settings = context.settings
     resource.check(request, settings)
     call = resource.translate(request, settings)
-    spec = cast(Computable, request)  # every resource's request has precision and seed
+    seed_given: int | None = getattr(request, "seed", None)
+    seed = seed_given if seed_given is not None else draw_seed()
+    if not resource.precision:
+        raw = await _engine(context, call, settings.time_limit_s + settings.time_limit_grace_s,
+                            seed=seed)
+        return resource.respond(request, raw, call, [])
+    spec = cast(Computable, request)  # every such resource's request has a precision
     budget = limits.budget(spec.precision, settings)
-    seed = spec.seed if spec.seed is not None else draw_seed()
+    raw = await _engine(context, call, budget.wall_limit_s, precision=budget.precision,
+                        seed=seed)
+    result, nested = raw if call.nested else (raw, None)
+    context.metrics.samples.labels(resource.name).inc(resource.samples(result))
+    notes = budget.warnings + budget.stop_warnings(
+        result.stopped_by, spec.precision.relative_error
+    )
+    response = resource.respond(request, result, call, notes)
+    if nested is not None and resource.attach is not None:
+        resource.attach(request, response, nested)
+    return response
+
+
+async def _engine(context: Context, call: EngineCall, wall_limit_s: float, **extra: Any
+                  ) -> Any:
+    """The engine call in the pool, its errors located at request fields."""
     try:
-        result = await context.pool.run(
-            call.fn, *call.args, wall_limit_s=budget.wall_limit_s,
-            **call.kwargs, precision=budget.precision, seed=seed,
-        )
+        return await context.pool.run(call.fn, *call.args, wall_limit_s=wall_limit_s,
+                                      **call.kwargs, **extra)
     except TailgaugeError as exc:
         raise call.locate(translate.engine_error_path(exc)) from exc
     except (ArithmeticError, ValueError, MemoryError) as exc:
@@ -110,8 +136,3 @@ async def run(resource: Resource[Req, Resp], request: Req, context: Context) -> 
             "intermediate figure overflowed or a root could not be bracketed); rescale the "
             "amounts or narrow the parameters",
         )) from exc
-    context.metrics.samples.labels(resource.name).inc(resource.samples(result))
-    notes = budget.warnings + budget.stop_warnings(
-        result.stopped_by, spec.precision.relative_error
-    )
-    return resource.respond(request, result, call, notes)

@@ -11,10 +11,16 @@ import core
 from core import measures
 from core.credit import CreditModel
 from core.errors import LimitError, TailgaugeError
-from service import limits, translate
+from core.fitting.api import fit_claims
+from core.parameter_figures import (
+    exceedance_with_parameter_risk,
+    tail_estimates_with_parameter_risk,
+)
+from service import fit_translate, limits, parameter_risk, translate
 from service.pipeline import EngineCall, Resource
 from service.schemas.common import PortfolioRequest
 from service.schemas.exceedance import ExceedanceRequest, ExceedanceResponse
+from service.schemas.fit import FitRequest, FitResponse
 from service.schemas.layers import LayersRequest, LayersResponse
 from service.schemas.risk_measures import RiskMeasuresRequest, RiskMeasuresResponse
 from service.schemas.ruin import RuinRequest, RuinResponse
@@ -47,8 +53,9 @@ def _renamed(engine_name: str, request_name: str) -> Any:
 
 
 def _exceedance_call(body: ExceedanceRequest, settings: Settings) -> EngineCall:
-    return EngineCall(core.exceedance, (_portfolio(body, settings), body.thresholds),
-                      {"method": body.method})
+    return parameter_risk.engine_call(
+        body.portfolio, core.estimate_exceedance, exceedance_with_parameter_risk,
+        _portfolio(body, settings), (body.thresholds,), {"method": body.method})
 
 
 EXCEEDANCE: Resource[ExceedanceRequest, ExceedanceResponse] = Resource(
@@ -57,6 +64,7 @@ EXCEEDANCE: Resource[ExceedanceRequest, ExceedanceResponse] = Resource(
     translate=_exceedance_call,
     respond=lambda _, result, __, notes: translate.exceedance_response(result, warnings=notes),
     samples=translate.samples_behind,
+    attach=lambda _, response, nested: parameter_risk.attach_exceedance(response, nested),
 )
 
 
@@ -76,9 +84,10 @@ def _risk_measures_call(body: RiskMeasuresRequest, settings: Settings) -> Engine
     # The engine names its grid points "thresholds"; the farthest point (a loss, else a
     # level's VaR) is what such an error is about.
     field = "losses" if body.losses else "levels" if body.levels else "return_periods"
-    return EngineCall(measures.tail_estimates, (model,),
-                      {"levels": levels, "losses": body.losses, "method": body.method},
-                      locate=_renamed("thresholds", field))
+    return parameter_risk.engine_call(
+        body.portfolio, measures.tail_estimates, tail_estimates_with_parameter_risk, model, (),
+        {"levels": levels, "losses": body.losses, "method": body.method},
+        locate=_renamed("thresholds", field))
 
 
 def _risk_measures_response(body: RiskMeasuresRequest, result: Any, _: EngineCall,
@@ -97,6 +106,8 @@ RISK_MEASURES: Resource[RiskMeasuresRequest, RiskMeasuresResponse] = Resource(
     translate=_risk_measures_call,
     respond=_risk_measures_response,
     samples=lambda result: int(result.samples),
+    attach=lambda body, response, nested: parameter_risk.attach_measures(
+        response, nested, len(body.levels)),
 )
 
 
@@ -111,9 +122,10 @@ def _layers_call(body: LayersRequest, settings: Settings) -> EngineCall:
                 model, f"the expected loss of the unlimited layers[{i}]"
             )
     # The engine names its points (the layers' ends) "thresholds".
-    return EngineCall(measures.tail_estimates, (model,),
-                      {"layers": translate.layers(body.layers), "method": body.method},
-                      locate=_renamed("thresholds", "layers"))
+    return parameter_risk.engine_call(
+        body.portfolio, measures.tail_estimates, tail_estimates_with_parameter_risk, model, (),
+        {"layers": translate.layers(body.layers), "method": body.method},
+        locate=_renamed("thresholds", "layers"))
 
 
 LAYERS: Resource[LayersRequest, LayersResponse] = Resource(
@@ -122,6 +134,7 @@ LAYERS: Resource[LayersRequest, LayersResponse] = Resource(
     translate=_layers_call,
     respond=lambda _, result, __, notes: translate.layers_response(result, warnings=notes),
     samples=lambda result: int(result.samples),
+    attach=lambda _, response, nested: parameter_risk.attach_layers(response, nested),
 )
 
 
@@ -148,7 +161,7 @@ def _ruin_call(body: RuinRequest, settings: Settings) -> EngineCall:
     _check_path_claims(process, body.horizon, settings)
     # The engine sums ladder heights as a one-line portfolio (Pollaczek-Khinchine) and calls
     # request-wide trouble "portfolio": for the caller both are the process.
-    return EngineCall(core.ruin, (process, body.capital),
+    return EngineCall(core.ruin_probability, (process, body.capital),
                       {"horizon": body.horizon, "target_probability": body.target_probability,
                        "method": body.method},
                       locate=_renamed("portfolio", "process"), subject=process)
@@ -164,6 +177,28 @@ RUIN: Resource[RuinRequest, RuinResponse] = Resource(
 )
 
 
+# --- fit ------------------------------------------------------------------------------------
+
+
+def _fit_call(body: FitRequest, _: Settings) -> EngineCall:
+    return EngineCall(fit_claims, (body.claims,), {
+        "reporting_threshold": body.reporting_threshold, "censored_at": body.censored_at,
+        "families": body.families, "tail_threshold": body.tail_threshold,
+        "counts": body.counts, "exposures": body.exposures,
+        "replicates": body.bootstrap.replicates, "max_claims": body.bootstrap.max_claims,
+    }, locate=_renamed("portfolio", "claims"))
+
+
+FIT: Resource[FitRequest, FitResponse] = Resource(
+    name="fit", request=FitRequest, response=FitResponse,
+    check=lambda _, __: None,  # the schema bounds the data; a fit has no grid of points
+    translate=_fit_call,
+    respond=lambda _, report, __, ___: fit_translate.fit_response(report),
+    samples=lambda _: 0,  # a fit draws no portfolio samples
+    precision=False,
+)
+
+
 KINDS: dict[str, Resource[Any, Any]] = {
-    resource.name: resource for resource in (EXCEEDANCE, RISK_MEASURES, LAYERS, RUIN)
+    resource.name: resource for resource in (EXCEEDANCE, RISK_MEASURES, LAYERS, RUIN, FIT)
 }

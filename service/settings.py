@@ -6,7 +6,7 @@ import os
 from pathlib import Path
 from typing import Literal
 
-from pydantic import Field
+from pydantic import Field, SecretStr
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 # The examples ship next to the packages in the repository (editable install).
@@ -87,3 +87,34 @@ class Settings(BaseSettings):
         "server stopped is requeued until then, and then marked failed.",
     )
     max_run_items: int = Field(default=1000, ge=1, description="Most items per batch run.")
+    # --- the run store ---
+    store_busy_timeout_s: float = Field(
+        default=5.0,
+        ge=0,
+        le=600,
+        description="How long a store operation waits for a lock held by another process "
+        "(a backup, a second connection) before it is answered with 503 store_busy.",
+    )
+    store_drill_file: Path | None = Field(
+        default=None,
+        description="Fault drills only: while this file holds the word 'full', the run store "
+        "may not grow (SQLite's own 'database or disk is full' follows), as if the disk "
+        "were full; removing the file gives the space back.",
+    )
+    # --- authentication (service/auth.py) ---
+    auth: Literal["auto", "on", "off"] = Field(
+        default="auto",
+        description="Bearer tokens: 'on' requires one on every computing and runs route; "
+        "'off' never asks; 'auto' (default) requires one when tokens are configured or the "
+        "server listens beyond loopback (where it then refuses to start without tokens).",
+    )
+    tokens: SecretStr | None = Field(
+        default=None,
+        description="Accepted bearer tokens, comma-separated (TAILGAUGE_TOKENS). Each token "
+        "sees only the runs it created.",
+    )
+    token_file: Path | None = Field(
+        default=None,
+        description="A file of accepted bearer tokens, one per line ('#' starts a comment); "
+        "added to tokens.",
+    )

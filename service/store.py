@@ -10,8 +10,13 @@ loses at most the work in progress, never a finished result. ``synchronous=FULL`
 commit reach the disk before the call returns (power loss included, not just a killed
 process).
 
-The store assumes one server per data dir: at start-up every item still marked running
-belongs to a server that is gone.
+The store assumes one server per data dir (``service.datadir`` holds a lock on it): at
+start-up every item still marked running belongs to a server that is gone.
+
+Faults: every SQLite error that is a condition of the server (disk full, database locked by
+another process past the busy timeout, I/O error) is raised as ``StoreUnavailable`` (a 503
+for HTTP callers) after the transaction is rolled back, and recorded in ``StoreHealth`` so
+that ``/v1/health`` reports it; the next operation of the same kind that works clears it.
 """
 
 from __future__ import annotations
@@ -22,132 +27,31 @@ import threading
 import uuid
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, Literal, Protocol
+from typing import Any
 
-RunStatus = Literal["queued", "running", "done", "failed", "cancelled"]
-ItemStatus = Literal["queued", "running", "done", "failed", "cancelled"]
-RUN_STATUSES: tuple[RunStatus, ...] = ("queued", "running", "done", "failed", "cancelled")
-ACTIVE: tuple[RunStatus, ...] = ("queued", "running")
+from service.store_faults import DrillHook, Fault, StoreHealth, classify
+from service.store_records import (
+    ACTIVE,
+    RUN_STATUSES,
+    ItemRecord,
+    ItemStatus,
+    NewItem,
+    Progress,
+    Recovery,
+    RunRecord,
+    RunStatus,
+    RunStore,
+)
+
+__all__ = [
+    "ACTIVE", "RUN_STATUSES", "SCHEMA_VERSION", "STORE_FILE", "ItemRecord", "ItemStatus",
+    "NewItem", "Progress", "Recovery", "RunRecord", "RunStatus", "RunStore", "SqliteRunStore",
+]
+
 STORE_FILE = "runs.sqlite3"
-SCHEMA_VERSION = 1
-
-
-@dataclass(frozen=True)
-class NewItem:
-    """One item of a batch as submitted, its seed already drawn into ``request``."""
-
-    item_id: str
-    kind: str
-    request: Any  # the JSON value the caller sent (a dict when well formed)
-    seed: int | None  # None when the request is not valid enough to carry one
-
-
-@dataclass(frozen=True)
-class Progress:
-    total: int
-    queued: int = 0
-    running: int = 0
-    done: int = 0
-    failed: int = 0
-    cancelled: int = 0
-
-    @property
-    def finished(self) -> int:
-        return self.done + self.failed
-
-
-@dataclass(frozen=True)
-class RunRecord:
-    seq: int  # insertion order; the list cursor
-    run_id: str
-    name: str
-    status: RunStatus
-    batch_hash: str
-    idempotency_key: str | None
-    engine_version: str
-    created_at: str
-    updated_at: str
-    progress: Progress
-
-
-@dataclass(frozen=True)
-class ItemRecord:
-    run_id: str
-    run_seq: int
-    position: int
-    item_id: str
-    kind: str
-    request: Any
-    seed: int | None
-    status: ItemStatus
-    attempts: int
-    result: dict[str, Any] | None = None
-    error: list[dict[str, Any]] | None = None
-    engine_version: str | None = None
-    finished_at: str | None = None
-
-
-@dataclass(frozen=True)
-class Recovery:
-    """What start-up did with the items a stopped server left running."""
-
-    requeued: list[tuple[str, str]] = field(default_factory=list)  # (run_id, item_id)
-    failed: list[tuple[str, str]] = field(default_factory=list)
-
-
-class RunStore(Protocol):
-    """Storage of batch runs. Every method is synchronous and commits before it returns."""
-
-    def create_run(
-        self, *, name: str, items: Sequence[NewItem], engine_version: str, batch_hash: str,
-        idempotency_key: str | None,
-    ) -> tuple[RunRecord, bool]:
-        """Store a new run, or return the run already stored under ``idempotency_key``
-        (the bool says whether a run was created)."""
-        ...
-
-    def get_run(self, run_id: str) -> RunRecord | None: ...
-
-    def read_run(self, run_id: str) -> tuple[RunRecord, list[ItemRecord]] | None:
-        """The run and every item of it in batch order, read as one consistent snapshot."""
-        ...
-
-    def list_runs(
-        self, *, status: RunStatus | None, limit: int, offset: int, before_seq: int | None
-    ) -> list[RunRecord]:
-        """Runs, newest first."""
-        ...
-
-    def claim_next(self) -> ItemRecord | None:
-        """Mark the oldest queued item running (counting an attempt) and return it."""
-        ...
-
-    def finish_item(
-        self, item: ItemRecord, *, result: dict[str, Any] | None,
-        error: list[dict[str, Any]] | None, engine_version: str,
-    ) -> bool:
-        """Commit a running item's outcome (done with ``result``, or failed with ``error``).
-        False if the item was not running (the outcome is dropped, nothing is overwritten)."""
-        ...
-
-    def requeue_item(self, item: ItemRecord, *, count_attempt: bool) -> None: ...
-
-    def cancel_run(self, run_id: str) -> RunRecord | None:
-        """Cancel the run's queued items; running ones may still finish."""
-        ...
-
-    def recover(self, *, max_attempts: int) -> Recovery:
-        """At start-up: requeue items left running, or fail them after max_attempts."""
-        ...
-
-    def release_running(self) -> int:
-        """At shutdown: put running items back in the queue without counting the attempt."""
-        ...
-
-    def close(self) -> None: ...
+SCHEMA_VERSION = 2  # 2: runs.owner
 
 
 _SCHEMA = """
@@ -160,7 +64,8 @@ CREATE TABLE IF NOT EXISTS runs (
     idempotency_key TEXT UNIQUE,
     engine_version TEXT NOT NULL,
     created_at TEXT NOT NULL,
-    updated_at TEXT NOT NULL
+    updated_at TEXT NOT NULL,
+    owner TEXT
 );
 CREATE INDEX IF NOT EXISTS runs_by_status ON runs (status, seq);
 CREATE TABLE IF NOT EXISTS items (
@@ -180,12 +85,16 @@ CREATE TABLE IF NOT EXISTS items (
     PRIMARY KEY (run_seq, position)
 );
 CREATE INDEX IF NOT EXISTS items_queue ON items (status, run_seq, position);
+CREATE TABLE IF NOT EXISTS probe (id INTEGER PRIMARY KEY, payload BLOB);
 """
+PROBE_BYTES = 64 * 1024  # room the probe asks for: more than one finished result needs
 
 _RUN_COLUMNS = (
     "seq, run_id, name, status, batch_hash, idempotency_key, engine_version, created_at, "
-    "updated_at"
+    "updated_at, owner"
 )
+# A run is visible to its owner, and to everyone while authentication is off (owner None).
+_OWNED = "(:owner IS NULL OR owner = :owner)"
 _ITEM_COLUMNS = (
     "r.run_id, i.run_seq, i.position, i.item_id, i.kind, i.request, i.seed, i.status, "
     "i.attempts, i.result, i.error, i.engine_version, i.finished_at"
@@ -213,57 +122,108 @@ class SqliteRunStore:
     (the service calls it through ``asyncio.to_thread`` to keep the event loop free).
     """
 
-    def __init__(self, *, path: Path | str) -> None:
+    def __init__(
+        self, *, path: Path | str, busy_timeout_s: float = 5.0, drill_file: Path | None = None
+    ) -> None:
         self.path = str(path)
         self._lock = threading.Lock()
+        self._health = StoreHealth()
+        self._drill = DrillHook(drill_file)
+        # Opening errors (not a database, unreadable) are the caller's to report: raw here.
         self._conn = sqlite3.connect(self.path, isolation_level=None, check_same_thread=False)
-        self._conn.execute("PRAGMA busy_timeout = 5000")
-        self._conn.execute("PRAGMA journal_mode = WAL")  # readers never wait for the writer
-        self._conn.execute("PRAGMA synchronous = FULL")  # a commit is on disk when it returns
-        self._conn.execute("PRAGMA foreign_keys = ON")
-        with self._transaction() as conn:
-            # executescript would commit by itself; run the statements inside this one.
-            for statement in filter(str.strip, _SCHEMA.split(";")):
-                conn.execute(statement)
-            conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+        try:
+            self._conn.execute(f"PRAGMA busy_timeout = {int(busy_timeout_s * 1000)}")
+            self._conn.execute("PRAGMA journal_mode = WAL")  # readers never wait for the writer
+            self._conn.execute("PRAGMA synchronous = FULL")  # a commit is on disk when it returns
+            self._conn.execute("PRAGMA foreign_keys = ON")
+            with self._transaction() as conn:
+                # executescript would commit by itself; run the statements inside this one.
+                for statement in filter(str.strip, _SCHEMA.split(";")):
+                    conn.execute(statement)
+                columns = {row[1] for row in conn.execute("PRAGMA table_info(runs)")}
+                if "owner" not in columns:  # a store written by schema version 1
+                    conn.execute("ALTER TABLE runs ADD COLUMN owner TEXT")
+                conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+        except BaseException:
+            self._conn.close()
+            raise
 
     @property
     def journal_mode(self) -> str:
-        with self._lock:
-            return str(self._conn.execute("PRAGMA journal_mode").fetchone()[0])
+        with self._reading() as conn:
+            return str(conn.execute("PRAGMA journal_mode").fetchone()[0])
+
+    @property
+    def fault(self) -> Fault | None:
+        return self._health.fault
+
+    @property
+    def write_fault(self) -> Fault | None:
+        return self._health.write_fault
+
+    @contextmanager
+    def _faults(self, *, write: bool) -> Iterator[None]:
+        """Turn the server's SQLite faults into StoreUnavailable and keep the health record."""
+        try:
+            yield
+        except sqlite3.Error as exc:
+            fault = classify(exc)
+            self._health.record(write=write, fault=fault)
+            if fault is None:
+                raise
+            raise fault from exc
+        self._health.record(write=write, fault=None)
+
+    @contextmanager
+    def _reading(self) -> Iterator[sqlite3.Connection]:
+        with self._lock, self._faults(write=False):
+            yield self._conn
 
     @contextmanager
     def _transaction(self) -> Iterator[sqlite3.Connection]:
-        with self._lock:
+        with self._lock, self._faults(write=True):
+            self._drill.apply(self._conn)
             # IMMEDIATE takes the write lock up front: no other writer can slip in between
             # this transaction's reads and writes.
             self._conn.execute("BEGIN IMMEDIATE")
             try:
                 yield self._conn
+                self._conn.execute("COMMIT")  # a full disk may refuse the commit itself
             except BaseException:
-                self._conn.execute("ROLLBACK")
+                # SQLite may already have rolled back (SQLITE_FULL can end the transaction).
+                if self._conn.in_transaction:
+                    self._conn.execute("ROLLBACK")
                 raise
-            self._conn.execute("COMMIT")
+
+    def probe(self) -> None:
+        with self._transaction() as conn:
+            # Allocates fresh pages (fails while full), then frees them in the same commit.
+            conn.execute("INSERT OR REPLACE INTO probe (id, payload) VALUES (1, zeroblob(?))",
+                         (PROBE_BYTES,))
+            conn.execute("DELETE FROM probe")
 
     # --- runs -----------------------------------------------------------------------------
 
     def create_run(
         self, *, name: str, items: Sequence[NewItem], engine_version: str, batch_hash: str,
-        idempotency_key: str | None,
+        idempotency_key: str | None, owner: str | None = None,
     ) -> tuple[RunRecord, bool]:
+        # Keys are per owner: the stored key is prefixed by the owner's token digest.
+        key = None if idempotency_key is None else (
+            idempotency_key if owner is None else f"{owner}:{idempotency_key}")
         with self._transaction() as conn:
-            if idempotency_key is not None:
+            if key is not None:
                 row = conn.execute(
-                    f"SELECT {_RUN_COLUMNS} FROM runs WHERE idempotency_key = ?",
-                    (idempotency_key,),
+                    f"SELECT {_RUN_COLUMNS} FROM runs WHERE idempotency_key = ?", (key,)
                 ).fetchone()
                 if row is not None:
                     return self._run(conn, row), False
             now = _now()
             cursor = conn.execute(
                 "INSERT INTO runs (run_id, name, status, batch_hash, idempotency_key, "
-                "engine_version, created_at, updated_at) VALUES (?, ?, 'queued', ?, ?, ?, ?, ?)",
-                (uuid.uuid4().hex, name, batch_hash, idempotency_key, engine_version, now, now),
+                "engine_version, created_at, updated_at, owner) "
+                "VALUES (?, ?, 'queued', ?, ?, ?, ?, ?, ?)",
+                (uuid.uuid4().hex, name, batch_hash, key, engine_version, now, now, owner),
             )
             seq = int(cursor.lastrowid or 0)
             conn.executemany(
@@ -276,47 +236,56 @@ class SqliteRunStore:
             )
             return self._run_by_seq(conn, seq), True
 
-    def get_run(self, run_id: str) -> RunRecord | None:
-        with self._lock:
-            row = self._conn.execute(
-                f"SELECT {_RUN_COLUMNS} FROM runs WHERE run_id = ?", (run_id,)
+    def get_run(self, run_id: str, *, owner: str | None = None) -> RunRecord | None:
+        with self._reading() as conn:
+            row = conn.execute(
+                f"SELECT {_RUN_COLUMNS} FROM runs WHERE run_id = :run_id AND {_OWNED}",
+                {"run_id": run_id, "owner": owner},
             ).fetchone()
-            return None if row is None else self._run(self._conn, row)
+            return None if row is None else self._run(conn, row)
 
-    def read_run(self, run_id: str) -> tuple[RunRecord, list[ItemRecord]] | None:
-        with self._lock:
+    def read_run(
+        self, run_id: str, *, owner: str | None = None
+    ) -> tuple[RunRecord, list[ItemRecord]] | None:
+        with self._reading() as conn:
             # One read transaction: the progress counts and the items agree.
-            self._conn.execute("BEGIN")
+            conn.execute("BEGIN")
             try:
-                row = self._conn.execute(
-                    f"SELECT {_RUN_COLUMNS} FROM runs WHERE run_id = ?", (run_id,)
+                row = conn.execute(
+                    f"SELECT {_RUN_COLUMNS} FROM runs WHERE run_id = :run_id AND {_OWNED}",
+                    {"run_id": run_id, "owner": owner},
                 ).fetchone()
                 if row is None:
                     return None
-                rows = self._conn.execute(
+                rows = conn.execute(
                     f"SELECT {_ITEM_COLUMNS} FROM items i JOIN runs r ON r.seq = i.run_seq "
                     "WHERE i.run_seq = ? ORDER BY i.position",
                     (row[0],),
                 ).fetchall()
-                return self._run(self._conn, row), [_item(r) for r in rows]
+                return self._run(conn, row), [_item(r) for r in rows]
             finally:
-                self._conn.execute("COMMIT")
+                if conn.in_transaction:
+                    conn.execute("COMMIT")
 
     def list_runs(
-        self, *, status: RunStatus | None, limit: int, offset: int, before_seq: int | None
+        self, *, status: RunStatus | None, limit: int, offset: int, before_seq: int | None,
+        owner: str | None = None,
     ) -> list[RunRecord]:
-        with self._lock:
-            rows = self._conn.execute(
-                f"SELECT {_RUN_COLUMNS} FROM runs WHERE (?1 IS NULL OR status = ?1) "
-                "AND (?2 IS NULL OR seq < ?2) ORDER BY seq DESC LIMIT ?3 OFFSET ?4",
-                (status, before_seq, limit, offset),
+        with self._reading() as conn:
+            rows = conn.execute(
+                f"SELECT {_RUN_COLUMNS} FROM runs WHERE (:status IS NULL OR status = :status) "
+                f"AND (:before IS NULL OR seq < :before) AND {_OWNED} "
+                "ORDER BY seq DESC LIMIT :limit OFFSET :offset",
+                {"status": status, "before": before_seq, "owner": owner, "limit": limit,
+                 "offset": offset},
             ).fetchall()
-            return [self._run(self._conn, row) for row in rows]
+            return [self._run(conn, row) for row in rows]
 
-    def cancel_run(self, run_id: str) -> RunRecord | None:
+    def cancel_run(self, run_id: str, *, owner: str | None = None) -> RunRecord | None:
         with self._transaction() as conn:
             row = conn.execute(
-                "SELECT seq, status FROM runs WHERE run_id = ?", (run_id,)
+                f"SELECT seq, status FROM runs WHERE run_id = :run_id AND {_OWNED}",
+                {"run_id": run_id, "owner": owner},
             ).fetchone()
             if row is None:
                 return None
@@ -446,11 +415,11 @@ class SqliteRunStore:
         return Progress(total=sum(counts.values()), **counts)
 
     def _run(self, conn: sqlite3.Connection, row: tuple[Any, ...]) -> RunRecord:
-        seq, run_id, name, status, batch_hash, key, engine_version, created, updated = row
+        seq, run_id, name, status, batch_hash, key, engine_version, created, updated, owner = row
         return RunRecord(
             seq=seq, run_id=run_id, name=name, status=status, batch_hash=batch_hash,
             idempotency_key=key, engine_version=engine_version, created_at=created,
-            updated_at=updated, progress=self._progress(conn, seq),
+            updated_at=updated, progress=self._progress(conn, seq), owner=owner,
         )
 
     def _run_by_seq(self, conn: sqlite3.Connection, seq: int) -> RunRecord:

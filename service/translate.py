@@ -11,9 +11,13 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from typing import Any
 
+import numpy as np
+
 import core
 from core.credit import CreditModel
+from core.dependence.copula import Copula
 from core.errors import MethodError, ParameterError, TailgaugeError
+from core.fitting.spliced import Spliced
 from core.measures import Interval, Layer, LayerEstimate, MeasureEstimate, TailResult
 from core.results import (
     CapitalForTarget,
@@ -45,6 +49,21 @@ _SEVERITIES: dict[str, Callable[..., Any]] = {
     "normal": core.Normal,
     "generalized_pareto": core.GeneralizedPareto,
 }
+
+
+def _spliced(*, threshold: float, body_weight: float, body: dict[str, Any],
+             tail: dict[str, Any]) -> Spliced:
+    parts = dict(body)
+    family = parts.pop("family")
+    with located("body"):
+        body_law = _SEVERITIES[family](**parts)
+    with located("tail"):
+        tail_law = core.GeneralizedPareto(**tail)
+    return Spliced(body=body_law, threshold=threshold, body_weight=body_weight,
+                   tail_law=tail_law)
+
+
+_SEVERITIES["spliced"] = _spliced
 _COUNTS: dict[str, Callable[..., Any]] = {
     "fixed": core.Fixed,
     "poisson": core.Poisson,
@@ -96,8 +115,20 @@ def portfolio(spec: PortfolioSpec) -> core.Portfolio | CreditModel:
     if credit_translate.has_obligors(spec):
         return credit_translate.credit_model(spec)
     lines = [_line(line, "portfolio", "lines", i) for i, line in enumerate(spec.lines)]
+    dep = None
+    if spec.dependence is not None:
+        # The copula's errors already name portfolio.dependence.<field>[.row.column].
+        from core.dependence.copula import check_correlation
+
+        d = spec.dependence
+        if d.correlation is None:
+            raise ParameterError(("portfolio", "dependence", "correlation"),
+                                 "is required for claim lines: one row and column per line")
+        check_correlation(d.correlation, size=len(lines))
+        dep = Copula(kind=d.copula, correlation=np.asarray(d.correlation, dtype=float),
+                     df=d.df)
     with located("portfolio"):
-        return core.Portfolio(lines=lines)
+        return core.Portfolio(lines=lines, dependence=dep)
 
 
 def layers(specs: list[LayerSpec]) -> list[Layer]:
@@ -195,11 +226,6 @@ def samples_behind(result: ExceedanceResult) -> int:
 
 # --- risk measures and layers ---------------------------------------------------------------
 
-# With no sample beyond a point, the same one-sided 95% bound as /v1/exceedance: P <= -ln(0.05)/n
-# (the rule of three for a count of zero).
-NO_HIT_BOUND = -math.log(0.05)
-
-
 def _nothing_observed(p: Interval, samples: int) -> bool:
     """A sampled probability of 0 with a zero-width interval: no sample reached the point.
     (The deterministic method reports samples = 0; its 0 is a rigorous bound.)"""
@@ -209,9 +235,9 @@ def _nothing_observed(p: Interval, samples: int) -> bool:
 
 def _probability(p: Interval, samples: int) -> tuple[float | None, float | None, float | None]:
     """(value, ci_low, ci_high) of a probability, clipped to [0, 1]; nothing observed gives
-    0 with a one-sided upper bound rather than "0 +- 0"."""
+    0 with the core's one-sided upper bound (core.intervals) rather than "0 +- 0"."""
     if _nothing_observed(p, samples):
-        return 0.0, 0.0, min(1.0, NO_HIT_BOUND / samples)
+        return 0.0, 0.0, min(1.0, p.ci_high)
     return (
         finite_or_none(min(p.value, 1.0)),
         finite_or_none(max(p.ci_low, 0.0)),
@@ -329,8 +355,7 @@ def _layer(i: int, e: LayerEstimate, samples: int, warnings: list[str]) -> Layer
         # Nothing reached the layer: its loss is at most limit * P(S > a) <= limit * bound.
         warnings.append(f"{_layer_name(i, e)}: no sample reached the attachment; the "
                         "figures are 0 with one-sided upper bounds")
-        loss_low = 0.0
-        loss_high = None if e.limit is None else finite_or_none(e.limit * (attach[2] or 1.0))
+        loss_low = 0.0  # the core's loss bound is already limit * the no-hit bound
     elif not e.diagnostics.reliable:
         warnings.append(f"{_layer_name(i, e)}: flagged unreliable: {e.diagnostics.reason}")
     return LayerOut(

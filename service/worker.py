@@ -6,6 +6,13 @@ the app's ComputePool. An item's outcome is committed the moment it finishes. At
 stopped server left running are requeued (or failed after ``run_max_attempts`` starts); at a
 clean shutdown, running items go back to the queue without counting the attempt.
 
+Store faults: a slot whose finished item cannot be committed (disk full, database locked)
+keeps the outcome and commits it as soon as the store takes writes again, so nothing
+finished is lost and no item stays ``running`` once space is back; while the last write
+failed, slots claim no new work and probe the store instead. If the server stops first, the
+item is requeued (at a clean stop by ``release_running``, after kill -9 by ``recover``) and
+recomputed with its stored seed, giving the same figures.
+
 The same worker runs ``tailgauge run`` with a throw-away in-memory store.
 """
 
@@ -25,6 +32,7 @@ from pydantic import BaseModel, ValidationError
 
 import core
 from service import pipeline
+from service.datadir import DataDirLock, open_store
 from service.errors import detail_entry, problem
 from service.executor import ComputePool
 from service.metrics import Metrics
@@ -42,7 +50,6 @@ from service.schemas.runs import (
 )
 from service.settings import Settings
 from service.store import (
-    STORE_FILE,
     ItemRecord,
     NewItem,
     RunRecord,
@@ -50,10 +57,12 @@ from service.store import (
     RunStore,
     SqliteRunStore,
 )
+from service.store_faults import Fault, StoreUnavailable
 
 log = logging.getLogger("tailgauge.runs")
 
 IDLE_POLL_S = 1.0  # an idle slot looks at the queue this often even without a wake-up
+COMMIT_RETRY_S = (0.2, 5.0)  # first and longest wait between commits of a held outcome
 TERMINAL = frozenset({"done", "failed", "cancelled"})
 
 ItemCallback = Callable[[ItemRecord, RunRecord], None]
@@ -229,11 +238,6 @@ async def compute_item(
 # --- the worker -----------------------------------------------------------------------------
 
 
-def default_store(settings: Settings) -> RunStore:
-    settings.data_dir.mkdir(parents=True, exist_ok=True)
-    return SqliteRunStore(path=settings.data_dir / STORE_FILE)
-
-
 class RunWorker:
     """Owns the run store while started; ``run_workers`` slots take items from its queue."""
 
@@ -248,9 +252,10 @@ class RunWorker:
         self.metrics = metrics
         self.kinds = KINDS if kinds is None else kinds
         self.slots = settings.run_workers or settings.workers
-        self._store_factory = store_factory or (lambda: default_store(settings))
+        self._store_factory = store_factory
         self._on_item = on_item
         self._store: RunStore | None = None
+        self._data_dir_lock: DataDirLock | None = None
         self._tasks: list[asyncio.Task[None]] = []
         self._wake = asyncio.Event()
         self._changed = asyncio.Event()
@@ -268,10 +273,27 @@ class RunWorker:
             raise RuntimeError("the run worker is not started")
         return self._store
 
+    @property
+    def store_fault(self) -> Fault | None:
+        """The store's fault in force, for health (no disk access)."""
+        return None if self._store is None else self._store.fault
+
+    def _open_store(self) -> RunStore:
+        if self._store_factory is not None:
+            return self._store_factory()
+        lock = DataDirLock.acquire(self.settings.data_dir)  # DataDirError: another server
+        try:
+            store = open_store(self.settings, lock)
+        except BaseException:
+            lock.release()
+            raise
+        self._data_dir_lock = lock
+        return store
+
     async def start(self) -> None:
         self._stopping = False
         self._wake, self._changed = asyncio.Event(), asyncio.Event()  # bound to this loop
-        self._store = await asyncio.to_thread(self._store_factory)
+        self._store = await asyncio.to_thread(self._open_store)
         recovery = await asyncio.to_thread(
             self._store.recover, max_attempts=self.settings.run_max_attempts
         )
@@ -291,14 +313,20 @@ class RunWorker:
         store, self._store = self._store, None
         if store is not None:
             # A clean shutdown is not the item's fault: its attempt is not counted.
-            await asyncio.to_thread(store.release_running)
+            try:
+                await asyncio.to_thread(store.release_running)
+            except StoreUnavailable as exc:  # the next start's recover() requeues them
+                log.warning("runs: running items not released at shutdown: %s", exc.cause)
             await asyncio.to_thread(store.close)
+        lock, self._data_dir_lock = self._data_dir_lock, None
+        if lock is not None:
+            lock.release()
 
     def wake(self) -> None:
         self._wake.set()
 
     async def submit(
-        self, batch: RunBatchIn, *, idempotency_key: str | None
+        self, batch: RunBatchIn, *, idempotency_key: str | None, owner: str | None = None
     ) -> tuple[RunRecord, bool]:
         """Store the batch as a new run (or find the run of the same key) and wake the slots."""
         items = prepare_batch(batch, kinds=self.kinds, settings=self.settings)
@@ -306,36 +334,43 @@ class RunWorker:
         run, created = await asyncio.to_thread(
             self.store.create_run, name=batch.name, items=items,
             engine_version=core.ENGINE_VERSION, batch_hash=fingerprint,
-            idempotency_key=idempotency_key,
+            idempotency_key=idempotency_key, owner=owner,
         )
         if not created and run.batch_hash != fingerprint:
             raise IdempotencyConflict(run.run_id)
         self.wake()
         return run, created
 
-    async def view(self, run_id: str) -> RunOut | None:
-        snapshot = await asyncio.to_thread(self.store.read_run, run_id)
+    async def view(self, run_id: str, *, owner: str | None = None) -> RunOut | None:
+        snapshot = await asyncio.to_thread(self.store.read_run, run_id, owner=owner)
         return None if snapshot is None else run_view(*snapshot)
 
-    async def batch(self, run_id: str) -> RunBatchIn | None:
-        """The run's batch as stored, seeds included (None: no such run)."""
-        snapshot = await asyncio.to_thread(self.store.read_run, run_id)
+    async def run_and_batch(self, run_id: str, *, owner: str | None = None
+                            ) -> tuple[RunOut, RunBatchIn] | None:
+        """The run's view and its stored batch, from one read (None: no such run)."""
+        snapshot = await asyncio.to_thread(self.store.read_run, run_id, owner=owner)
+        return None if snapshot is None else (run_view(*snapshot), batch_view(*snapshot))
+
+    async def batch(self, run_id: str, *, owner: str | None = None) -> RunBatchIn | None:
+        """The run's batch as stored, seeds included (None: no such run for this owner)."""
+        snapshot = await asyncio.to_thread(self.store.read_run, run_id, owner=owner)
         return None if snapshot is None else batch_view(*snapshot)
 
-    async def cancel(self, run_id: str) -> RunOut | None:
+    async def cancel(self, run_id: str, *, owner: str | None = None) -> RunOut | None:
         """Cancel the run's queued items; the run afterwards (None: no such run)."""
-        if await asyncio.to_thread(self.store.cancel_run, run_id) is None:
+        if await asyncio.to_thread(self.store.cancel_run, run_id, owner=owner) is None:
             return None
         self._changed.set()
-        return await self.view(run_id)
+        return await self.view(run_id, owner=owner)
 
     async def list_runs(
-        self, *, status: RunStatus | None, limit: int, offset: int, before_seq: int | None
+        self, *, status: RunStatus | None, limit: int, offset: int, before_seq: int | None,
+        owner: str | None = None,
     ) -> list[RunRecord]:
         """Runs newest first (at most ``limit``), after ``offset`` or below ``before_seq``."""
         return await asyncio.to_thread(
             self.store.list_runs, status=status, limit=limit, offset=offset,
-            before_seq=before_seq,
+            before_seq=before_seq, owner=owner,
         )
 
     async def wait_finished(self, run_id: str) -> RunRecord:
@@ -353,6 +388,9 @@ class RunWorker:
     async def _slot(self) -> None:
         while not self._stopping:
             try:
+                if self.store.write_fault is not None:
+                    # The last write failed: compute nothing that could not be stored.
+                    await asyncio.to_thread(self.store.probe)
                 item = await asyncio.to_thread(self.store.claim_next)
                 if item is None:
                     await self._idle()
@@ -360,7 +398,9 @@ class RunWorker:
                     await self._run(item)
             except asyncio.CancelledError:
                 raise
-            except Exception:  # the store failed (disk full...): log, back off, go on
+            except StoreUnavailable:  # disk full, locked: health says so; wait and look again
+                await asyncio.sleep(IDLE_POLL_S)
+            except Exception:  # a bug: log, back off, go on
                 log.exception("run worker slot failed")
                 await asyncio.sleep(IDLE_POLL_S)
 
@@ -376,10 +416,8 @@ class RunWorker:
         if outcome.retry:
             await asyncio.to_thread(self.store.requeue_item, item, count_attempt=True)
             return
-        await asyncio.to_thread(
-            self.store.finish_item, item, result=outcome.result, error=outcome.error,
-            engine_version=core.ENGINE_VERSION,
-        )
+        if not await self._commit(item, outcome):
+            return
         status = "done" if outcome.error is None else "failed"
         self.finished.labels(item.kind, status).inc()
         self._changed.set()
@@ -387,6 +425,32 @@ class RunWorker:
             run = await asyncio.to_thread(self.store.get_run, item.run_id)
             if run is not None:
                 self._on_item(_finished_copy(item, status, outcome), run)
+
+
+    async def _commit(self, item: ItemRecord, outcome: Outcome) -> bool:
+        """Commit the outcome, holding it through store faults until a commit works (True)
+        or the worker stops (False: the item is still running in the store, and is requeued
+        by release_running or, after a kill, by recover)."""
+        wait, longest = COMMIT_RETRY_S
+        while True:
+            try:
+                await asyncio.to_thread(
+                    self.store.finish_item, item, result=outcome.result, error=outcome.error,
+                    engine_version=core.ENGINE_VERSION,
+                )
+                return True
+            except StoreUnavailable as exc:
+                log.warning("runs: item %s of run %s finished but not stored yet (%s); "
+                            "retrying in %.1f s", item.item_id, item.run_id, exc.cause, wait)
+            except ValueError:  # an outcome JSON cannot hold: a bug, not the disk
+                log.exception("runs: item %s of run %s cannot be stored", item.item_id,
+                              item.run_id)
+                outcome = _failed([], "internal error (result not storable)", "internal_error")
+                continue
+            if self._stopping:
+                return False
+            await asyncio.sleep(wait)
+            wait = min(2 * wait, longest)
 
 
 def _finished_copy(item: ItemRecord, status: str, outcome: Outcome) -> ItemRecord:

@@ -20,6 +20,16 @@ def test_service_bench_runs_on_a_tiny_budget(capsys):
     assert data["throughput"]["failed"] == 0 and data["overhead"]["ratio"] > 0
 
 
+def test_report_bench_runs_on_a_tiny_budget(capsys, monkeypatch):
+    from bench import report
+
+    monkeypatch.setenv("TAILGAUGE_EXECUTOR", "thread")
+    assert report.main(["--quick"]) == 0
+    assert "Run report of the month-end batch" in capsys.readouterr().out
+    data = json.loads((report.OUT / "report_quick.json").read_text())
+    assert data["bytes"] > 50_000 and len(data["report_cpu_s"]) == 1
+
+
 def test_credit_bench_runs_on_a_tiny_budget(capsys):
     assert credit.main(["--quick"]) == 0
     printed = capsys.readouterr().out

@@ -19,8 +19,6 @@ CREDIT_METHODS = ("crude", "glasserman_li")
 # Share of samples drawn from the model itself: caps the likelihood ratio at 1 / DEFENSIVE,
 # so a region the proposal neglects (another factor direction, W not small) cannot hide.
 DEFENSIVE = 0.1
-# Stream numbers of the credit methods (distinct from the claim estimators' 0..3).
-METHOD_STREAM = {"crude": 6, "glasserman_li": 7}
 _NEWTON_WORK = 8.0
 
 

@@ -8,17 +8,20 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from core.credit.estimators import CREDIT_METHODS, METHOD_STREAM, block_size, plan
+from core.credit.estimators import CREDIT_METHODS, block_size, plan
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
 from core.diagnostics import ContributionStats
 from core.errors import MethodError, ParameterError
 from core.estimators.base import Group
+from core.exceedance_records import check_seed, check_thresholds, estimate_record, warnings_for
+from core.invariants import check_monotone, check_probability
 from core.precision import Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
-from core.sampling import PILOT, block_rng
+from core.streams import Purpose, Stream
 
 PILOT_SAMPLES = 4096
+CRUDE = CREDIT_METHODS[0]  # crude counts hits: its interval is the exact binomial one
 
 
 def check_method(method: str) -> str:
@@ -41,7 +44,7 @@ def choose(model: CreditModel, x: np.ndarray, seed: int) -> tuple[list[str], str
     for name in CREDIT_METHODS:
         cost = 0.0
         for g, group in enumerate(plan(name, model, probe)):
-            rng = block_rng(seed, PILOT, (METHOD_STREAM[name] << 24) + g, 0)
+            rng = Stream(Purpose.PILOT, name, (g,)).rng(seed, 0)
             stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
             mean = np.asarray(stats.mean(), dtype=float)
             se = np.asarray(stats.std_error(), dtype=float)
@@ -62,7 +65,6 @@ def credit_exceedance(
     model: CreditModel, thresholds: Sequence[float], *, method: str = "auto",
     precision: Precision | None = None, seed: int | None = None,
 ) -> ExceedanceResult:
-    from core.exceedance import _estimate, _warnings, check_seed, check_thresholds
 
     start = time.monotonic()
     x = check_thresholds(thresholds)
@@ -84,22 +86,26 @@ def credit_exceedance(
     for gid, group in enumerate(groups):
         mapped = Group(tuple(int(possible[i]) for i in group.indices), group.block_values,
                        group.work, group.detail)
-        run = run_group(mapped, block, precision, seed, gid + (METHOD_STREAM[name] << 24),
+        run = run_group(mapped, block, precision, seed, Stream(Purpose.SAMPLES, name, (gid,)),
                         deadline)
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(mapped.indices):
-            found[i] = _estimate(float(x[i]), run.stats, col, run.samples, name, diags[col])
+            # The invariants every result passes (core.invariants) apply here too.
+            found[i] = check_probability(
+                estimate_record(float(x[i]), run.stats, col, run.samples, name, diags[col],
+                                indicator=name == CRUDE))[0]
     warnings: list[str] = []
     for i in range(x.size):
         if i not in found:
             found[i] = _impossible(float(x[i]), name)
             warnings.append(f"threshold {x[i]:g}: at or above the largest possible loss "
                             f"{top:g}; the probability is exactly 0")
-    estimates = [found[i] for i in range(x.size)]
+    estimates, notes = check_monotone([found[i] for i in range(x.size)], x.tolist())
+    warnings += notes
     order = ("time_limit", "max_samples", "samples", "relative_error")
     stopped = next((s for s in order if s in stops), "exact")
-    warnings = _warnings([e for e in estimates if e.samples > 0]) + warnings
+    warnings = warnings_for([e for e in estimates if e.samples > 0]) + warnings
     if stopped == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     mean, sd = loss_moments(model)
@@ -110,7 +116,7 @@ def credit_exceedance(
 
 def _impossible(x: float, name: str) -> ExceedanceEstimate:
     diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                       batch_ratio=None, reliable=True,
+                       batch_ratio=None, reliable=True, exact=True,
                        reason="the threshold is at or above the largest possible loss")
     return ExceedanceEstimate(threshold=x, value=0.0, std_error=0.0, relative_error=None,
                               ci_low=0.0, ci_high=0.0, samples=0, hits=0, diagnostics=diag,

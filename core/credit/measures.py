@@ -18,28 +18,18 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Callable, Sequence
-from typing import cast
+from collections.abc import Sequence
 
 import numpy as np
 from scipy import stats
 
 from core.credit.draws import Component, Sampler
-from core.credit.estimators import DEFENSIVE, METHOD_STREAM, block_size, component, work
+from core.credit.estimators import DEFENSIVE, block_size, component, work
 from core.credit.exceedance import check_method, choose
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
-from core.diagnostics import ContributionStats
-from core.estimators.base import BlockFn, Group
-from core.exceedance import Z95, check_seed
-from core.functionals import spread_out
-from core.measures import (
+from core.curves import (
     PILOT_SAMPLES,
-    Contribution,
-    Interval,
-    Layer,
-    MeasureEstimate,
-    TailResult,
     _Curves,
     _grid,
     _interp_log,
@@ -48,14 +38,19 @@ from core.measures import (
     _losses,
     _measure,
     _var_error,
-    check_levels,
     layout_block,
     point_columns,
 )
+from core.diagnostics import ContributionStats
+from core.estimators.base import BlockFn, Group
+from core.exceedance import check_seed
+from core.functionals import spread_out
+from core.intervals import Z95
+from core.invariants import check_tail
+from core.levels import Layer, check_levels
 from core.precision import GroupRun, Precision, run_group
-from core.sampling import PILOT, block_rng
-
-_STREAM = 9 << 24
+from core.results import Contribution, Interval, MeasureEstimate, TailResult
+from core.streams import Purpose, Stream
 
 
 def guess_var(model: CreditModel, q: float) -> float:
@@ -101,7 +96,7 @@ def _pilot_vars(model: CreditModel, name: str, q: np.ndarray, seed: int) -> list
     a = np.geomspace(max(min(guesses) / 20.0, 1e-9), min(max(guesses) * 20.0, top), 160)
     sampler = _sampler(model, name, [min(g, 0.999 * top) for g in guesses])
     stats_ = ContributionStats.from_samples(
-        _values(sampler, a)(PILOT_SAMPLES, block_rng(seed, PILOT, _STREAM, 0)))
+        _values(sampler, a)(PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, name).rng(seed, 0)))
     curves = _Curves(a, stats_)
     out = []
     for level, guess in zip(q, guesses, strict=True):
@@ -150,6 +145,8 @@ def credit_tail(
         if not m.diagnostics.reliable:
             warnings.append(f"level {m.level:g}: flagged unreliable: {m.diagnostics.reason}")
     layer_out = _layers(curves, a, layers)
+    measures, layer_out, notes = check_tail(measures, layer_out)
+    warnings += notes
     for ly in layer_out:
         if not ly.diagnostics.reliable:
             warnings.append(f"layer {ly.attachment:g} xs: flagged unreliable: "
@@ -171,10 +168,9 @@ def _run(model: CreditModel, name: str, a: np.ndarray, q: np.ndarray,
                          losses)
     group = Group((0,), block, work(model, name, len(spread_out(anchors))), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    error_of = cast(Callable[[ContributionStats], float],
-                    _var_error(q, a) if q.size else _layer_error(a.size, len(layers)))
-    run = run_group(group, block_size(model), precision, seed, _STREAM + METHOD_STREAM[name],
-                    deadline, error_of=error_of)
+    error_of = _var_error(q, a) if q.size else _layer_error(a.size)
+    run = run_group(group, block_size(model), precision, seed,
+                    Stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
     return _Curves(a, run.stats), run
 
 
@@ -237,8 +233,8 @@ def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEst
     fixed = Precision(samples=precision.samples or precision.minimum,
                       time_limit_s=precision.time_limit_s)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    run = run_group(group, block_size(model), fixed, seed,
-                    _STREAM + (1 << 20) + METHOD_STREAM[name], deadline)
+    run = run_group(group, block_size(model), fixed, seed, Stream(Purpose.EULER, name),
+                    deadline)
     mean = np.asarray(run.stats.mean(), dtype=float).reshape(nv, 2 * gs + 1)
     var = (np.asarray(run.stats.std_error(), dtype=float) ** 2 * run.stats.n).reshape(
         nv, 2 * gs + 1)

@@ -82,7 +82,7 @@ def check_correlation(
     if asym.size:
         i, j = (int(v) for v in asym[0])
         raise ParameterError(f"{name}.{i}.{j}", f"must equal entry [{j}][{i}] (the matrix must "
-                                                f"be symmetric): {r[i, j]!r} != {r[j, i]!r}")
+                                                f"be symmetric): {r[i, j]:g} != {r[j, i]:g}")
     r = 0.5 * (r + r.T)
     smallest = float(np.linalg.eigvalsh(r)[0])
     if smallest < -PSD_TOL * n:

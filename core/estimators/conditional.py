@@ -10,35 +10,24 @@ lines: the heavy-tailed lines without a per-claim limit (an atom at the limit wo
 Samples in which no conditioned line has a claim are covered exactly by the term
 P(N_H = 0) P(S_L > x).
 
-The `conditional_is` variant adds importance sampling on top: the other claims of the
-conditioned lines are drawn from a capped exponential tilt e^{theta min(y, c)} and their counts
-from the matching tilted law, theta adapted by moment matching (cross-entropy) from a short
-pilot, in a defensive mixture with the model itself. The likelihood ratio is exact for what is
-drawn.
+The same conditioning gives the stop-loss transform E[(S - a)+] for risk measures and layers
+(Conditioning.values with stop_loss); core.estimators.conditional_is adds importance sampling.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 
 import numpy as np
 
 from core.errors import MethodError
-from core.estimators.base import Group, work_per_sample
-from core.estimators.mixture import TiltFamily
+from core.estimators.base import BlockFn, Group, work_per_sample
+from core.estimators.estimator import Estimator, RuinRegime
+from core.functionals import excess_mean
 from core.portfolio import Portfolio
-from core.sampling import PILOT, Draw, TiltGrid, block_rng, draw_block
+from core.sampling import Draw, draw_block
 from core.severities import Capped
-
-# Moment-matching updates of theta from its start, each on its own pilot block.
-_CE_ROUNDS = 2
-_CE_SAMPLES = 4096
-# Share of samples drawn from the model itself (defensive mixture, Hesterberg 1995): it caps
-# the likelihood ratio at 1 / DEFENSIVE, so a region the adapted proposal neglects (one claim
-# filling the gap) cannot hide behind a small reported error.
-DEFENSIVE = 0.1
-# The capped tilt acts up to this multiple of the threshold's share per expected claim.
-_CAP_FACTOR = 3.0
 
 
 class Conditioning:
@@ -70,30 +59,58 @@ class Conditioning:
             return np.full(m, self.heavy[0])
         return np.asarray(self.heavy)[rng.choice(len(self.heavy), size=m, p=self.pick)]
 
-    def values(self, draw: Draw, cond: np.ndarray, x: np.ndarray) -> np.ndarray:
-        """Per-sample contributions, shape (m, len(x))."""
+    def values(self, draw: Draw, cond: np.ndarray, x: np.ndarray, *,
+               stop_loss: bool = False) -> np.ndarray:
+        """Per-sample contributions to P(S > x_g), shape (m, G); with stop_loss also to
+        E[(S - x_g)+] in G more columns. Given the rest, the conditioned claim X of line J
+        exceeds t = max(M, x - S_-) with probability Fbar(t), and on that event contributes
+        E[(X - b) 1{X > t}] = E[(X - t)+] + (t - b) Fbar(t) to the stop loss, b = x - S_-."""
         lines = self.portfolio.lines
         m = draw.total.size
         top = np.full(m, -np.inf)
         for k in self.heavy:
             top = np.maximum(top, draw.line_max[k])
-        t = np.maximum(top[:, None], x[None, :] - draw.total[:, None])
+        b = x[None, :] - draw.total[:, None]
+        t = np.maximum(top[:, None], b)
         logsf = np.empty_like(t)
+        sl = np.zeros_like(t)
         for k in self.heavy:
             mask = cond == k
             if mask.any():
-                logsf[mask] = lines[k].paid_severity.logsf(t[mask])
+                sev = lines[k].paid_severity
+                logsf[mask] = sev.logsf(t[mask])
+                if stop_loss:
+                    tk = t[mask]
+                    sl[mask] = excess_mean(sev, tk) + (tk - b[mask]) * np.exp(logsf[mask])
         log_v = math.log(self.rate) + logsf + draw.log_lr[:, None]
         v = np.exp(log_v)
+        light_sum = np.zeros(m)
+        light_lr = np.ones(m)
         if self.p0 > 0.0:
-            light_sum = np.zeros(m)
             light_llr = np.zeros(m)
             for k in self.light:
                 light_sum += draw.line_sums[k]
                 light_llr += draw.line_log_lr[k]
+            light_lr = np.exp(light_llr)
             hit = light_sum[:, None] > x[None, :]
-            v += self.p0 * hit * np.exp(light_llr)[:, None]
-        return v
+            v += self.p0 * hit * light_lr[:, None]
+        if not stop_loss:
+            return v
+        sl *= self.rate * np.exp(draw.log_lr)[:, None]
+        if self.p0 > 0.0:
+            over = light_sum[:, None] - x[None, :]
+            sl += self.p0 * np.maximum(over, 0.0) * light_lr[:, None]
+        return np.hstack([v, sl])
+
+    def check_finite_means(self) -> None:
+        """Stop-loss, TVaR and layer losses need a finite mean claim on every conditioned line."""
+        for k in self.heavy:
+            if not math.isfinite(self.portfolio.lines[k].paid_severity.mean):
+                raise MethodError(
+                    "portfolio",
+                    f"line {k} has an infinite mean claim: stop-loss, TVaR and layer losses do "
+                    "not exist (give it a limit, or a Pareto alpha > 1)",
+                )
 
 
 def plan_plain(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
@@ -109,62 +126,37 @@ def plan_plain(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
     return [Group(tuple(range(x.size)), values, work, "Asmussen-Kroese, no importance sampling")]
 
 
-def capped_family(cond: Conditioning, x: float) -> TiltFamily:
-    """Capped exponential tilts e^{theta min(y, c_k)} of every conditioned line's claims (the
-    conditioned, largest claim itself is never tilted). The cap c_k keeps each claim's own
-    heavy tail beyond it, so one big claim is still covered by the conditioning."""
-    lines = cond.portfolio.lines
-    claims = max(1.0, cond.portfolio.expected_claims)
-    grids: dict[int, TiltGrid | None] = {}
-    for k in cond.heavy:
-        sev = lines[k].paid_severity
-        cap = max(_CAP_FACTOR * x / claims, float(sev.isf(1e-3)))
-        grids[k] = TiltGrid(sev, min(cap, max(x, float(sev.isf(0.5)))))
-    return TiltFamily(cond.portfolio, grids, lead=cond.heavy[int(np.argmax(cond.pick))])
-
-
-def adapt(portfolio: Portfolio, x: float, seed: int, group: int) -> tuple[TiltFamily, float]:
-    """Moment matching (the cross-entropy update of a natural exponential family) from the
-    start E_theta[S_-] = x; returns the family and theta."""
+def sampler(portfolio: Portfolio, a: np.ndarray) -> BlockFn:
+    """Risk-measure contributions of plain conditioning: one sample set for every point."""
     cond = Conditioning(portfolio)
-    family = capped_family(cond, x)
-    theta = family.theta_for(x)
-    xs = np.array([x])
-    for r in range(_CE_ROUNDS):
-        rng = block_rng(seed, PILOT, group, r)
-        j = cond.choose(_CE_SAMPLES, rng)
-        draw = family.draw([theta], _CE_SAMPLES, rng, j, defensive=DEFENSIVE)
-        v = cond.values(draw, j, xs)[:, 0]
-        total = v.sum()
-        if total > 0 and np.isfinite(total):
-            refs = np.zeros(v.size)
-            for k in family.grids:
-                score = draw.line_scores[k]
-                assert score is not None
-                refs += score
-            theta = family.theta_for(float(v @ refs / total))
-    return family, theta
-
-
-def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
-    """Asmussen-Kroese with adapted importance sampling: one sample set per threshold."""
-    cond = Conditioning(portfolio)
-    groups = []
-    for i, x in enumerate(np.asarray(thresholds, dtype=float)):
-        family, theta = adapt(portfolio, float(x), seed, i)
-        groups.append(_is_group(cond, family, theta, i, float(x)))
-    return groups
-
-
-def _is_group(cond: Conditioning, family: TiltFamily, theta: float, i: int, x: float) -> Group:
-    xs = np.array([x])
+    cond.check_finite_means()
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         j = cond.choose(m, rng)
-        return cond.values(family.draw([theta], m, rng, j, defensive=DEFENSIVE), j, xs)
+        return cond.values(draw_block(portfolio, m, rng, size_biased=j), j, a, stop_loss=True)
 
-    caps = ", ".join(f"line {k} cap {float(g.ref[-1]):.4g}" for k, g in family.grids.items()
-                     if g is not None)
-    work = work_per_sample(cond.portfolio.expected_claims, 1)
-    return Group((i,), values, work,
-                 f"Asmussen-Kroese with capped exponential tilt theta = {theta:.4g} ({caps})")
+    return values
+
+
+class Conditional(Estimator):
+    name = "conditional"
+    listing = 30
+    one_sample_set = True
+    ruin_infinite = RuinRegime.GEOMETRIC_SUM
+    ruin_finite = RuinRegime.BIG_JUMP
+
+    def check(self, portfolio: Portfolio) -> None:
+        Conditioning(portfolio)
+
+    def candidate_rank(self, portfolio: Portfolio) -> int | None:
+        return None if portfolio.is_light else 0
+
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+        return plan_plain(portfolio, thresholds)
+
+    def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
+                      seed: int) -> BlockFn:
+        return sampler(portfolio, points)
+
+
+ESTIMATOR = Conditional()

@@ -2,9 +2,13 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import numpy as np
 
-from core.estimators.base import Group, work_per_sample
+from core.estimators.base import BlockFn, Group, work_per_sample
+from core.estimators.estimator import Estimator, RuinRegime
+from core.functionals import plain_values
 from core.portfolio import Portfolio
 from core.sampling import draw_block
 
@@ -18,3 +22,25 @@ def plan(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
 
     work = work_per_sample(portfolio.expected_claims, 0)
     return [Group(tuple(range(x.size)), values, work, "indicator of S > x")]
+
+
+class Crude(Estimator):
+    name = "crude"
+    listing = 10
+    indicator = True
+    one_sample_set = True
+    ruin_infinite = RuinRegime.GEOMETRIC_SUM
+    ruin_finite = RuinRegime.CRUDE_PATHS
+
+    def candidate_rank(self, portfolio: Portfolio) -> int | None:
+        return 9  # always a candidate, and the last resort
+
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+        return plan(portfolio, thresholds)
+
+    def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
+                      seed: int) -> BlockFn:
+        return lambda m, rng: plain_values(draw_block(portfolio, m, rng), points)
+
+
+ESTIMATOR = Crude()

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
+from typing import Any
 
 import numpy as np
 from scipy.optimize import brentq
@@ -158,7 +159,7 @@ class TiltFamily:
 
 
 def concat(parts: list[Draw]) -> Draw:
-    def cat(name: str) -> list:
+    def cat(name: str) -> list[Any]:  # arrays, or None where a line kept no scores
         columns = [getattr(p, name) for p in parts]
         return [None if any(c is None for c in col) else np.concatenate(col)
                 for col in zip(*columns, strict=True)]

@@ -10,35 +10,21 @@ import numpy as np
 
 from core.diagnostics import ContributionStats
 from core.errors import LimitError, MethodError, TailgaugeError
-from core.estimators import conditional, crude, tilted
+from core.estimators import registry
 from core.estimators.base import Group
 from core.portfolio import Portfolio
-from core.sampling import PILOT, block_rng
+from core.streams import Purpose, Stream
 
 PILOT_SAMPLES = 4096
-# Pilot streams of different candidates must not share random numbers with each other.
-_PILOT_GROUP_BASE = {"crude": 1 << 20, "conditional": 2 << 20, "tilted": 3 << 20}
-METHOD_STREAM = {"crude": 0, "conditional": 1, "conditional_is": 2, "tilted": 3}
 
 
 def candidates(portfolio: Portfolio) -> list[str]:
-    """Candidate estimators for the tails in the model."""
-    if portfolio.is_light:
-        return ["tilted", "crude"]
-    return ["conditional", "conditional_is", "crude"]
-
+    """Candidate estimators for the tails in the model (each estimator says when it is one)."""
+    return registry.candidates(portfolio)
 
 
 def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> list[Group]:
-    if name == "crude":
-        return crude.plan(portfolio, x)
-    if name == "conditional":
-        return conditional.plan_plain(portfolio, x)
-    if name == "conditional_is":
-        return conditional.plan_is(portfolio, x, seed)
-    if name == "tilted":
-        return tilted.plan(portfolio, x)
-    raise ValueError(name)
+    return registry.get(name).plan(portfolio, x, seed)
 
 
 @dataclass
@@ -56,7 +42,8 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
     reliable = np.zeros(x.size, dtype=bool)
     cost = 0.0
     for g, group in enumerate(groups):
-        rng = block_rng(seed, PILOT, _PILOT_GROUP_BASE.get(name, 4 << 20) + g, 0)
+        # Each candidate pilots on streams of its own (core.streams keys them by name).
+        rng = Stream(Purpose.PILOT, registry.get(name).stream, (g,)).rng(seed, 0)
         stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
         mean = np.asarray(stats.mean(), dtype=float)
         se = np.asarray(stats.std_error(), dtype=float)

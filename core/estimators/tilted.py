@@ -10,14 +10,18 @@ drawn from a stepwise tilt (core.sampling.StepwiseTilt) whose likelihood ratio i
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 
 import numpy as np
 from scipy.optimize import brentq
 
 from core.errors import LimitError, MethodError, ParameterError
-from core.estimators.base import Group, work_per_sample
+from core.estimators.base import BlockFn, Group, work_per_sample
+from core.estimators.estimator import Estimator, RuinRegime
+from core.estimators.mixture import TiltFamily
+from core.functionals import plain_values, spread_out
 from core.portfolio import Portfolio
-from core.sampling import LineProposal, StepwiseTilt, draw_block
+from core.sampling import LineProposal, StepwiseTilt, TiltGrid, draw_block
 from core.severities import Severity
 
 
@@ -40,7 +44,10 @@ def theta_bound(portfolio: Portfolio) -> float:
             # kappa_Y(theta) must stay below the count's bound.
             cap = float(law.mgf_bound)
             hi = b if math.isfinite(b) else 1e6
-            f = lambda t, s=sev, c=cap: float(s.cumulant(t)) - c  # noqa: E731
+
+            def f(t: float, s: Severity = sev, c: float = cap) -> float:
+                return float(s.cumulant(t)) - c
+
             if f(hi * (1 - 1e-12)) > 0:
                 b = brentq(f, 0.0, hi * (1 - 1e-12), xtol=1e-14)
         bound = min(bound, b)
@@ -106,8 +113,10 @@ def saddlepoint(portfolio: Portfolio, x: float) -> float:
                         xtol=1e-14 * hi, rtol=1e-12))
 
 
-def _proposals(portfolio: Portfolio, theta: float):
-    props, steps = [], []
+def _proposals(portfolio: Portfolio, theta: float
+               ) -> tuple[list[LineProposal], list[StepwiseTilt | None]]:
+    props: list[LineProposal] = []
+    steps: list[StepwiseTilt | None] = []
     for line in portfolio.lines:
         sev = line.paid_severity
         step = None
@@ -140,7 +149,9 @@ def plan(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
         theta = saddlepoint(portfolio, float(x))
         props, steps = _proposals(portfolio, theta)
 
-        def values(m: int, rng: np.random.Generator, x=x, props=props, steps=steps) -> np.ndarray:
+        def values(m: int, rng: np.random.Generator, x: float = float(x),
+                   props: list[LineProposal] = props,
+                   steps: list[StepwiseTilt | None] = steps) -> np.ndarray:
             draw = draw_block(portfolio, m, rng, proposals=props, stepwise=steps)
             hit = draw.total > x
             out = np.zeros(m)
@@ -157,3 +168,43 @@ def plan(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
         work = work_per_sample(claims, 0)
         groups.append(Group((i,), values, work, f"exponential tilt theta = {theta:.6g}"))
     return groups
+
+
+def sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequence[float]) -> BlockFn:
+    """Risk-measure contributions from a mixture of exponential tilts, one at each anchor's
+    saddlepoint."""
+    check_light(portfolio)
+    thetas = sorted({saddlepoint(portfolio, float(x)) for x in spread_out(anchors)})
+    top = max(thetas)
+    grids: dict[int, TiltGrid | None] = {}
+    for k, line in enumerate(portfolio.lines):
+        sev = line.paid_severity
+        grids[k] = None if has_closed_tilt(sev) else TiltGrid.for_tilt(sev, top)
+    family = TiltFamily(portfolio, grids)
+    nonzero = [t for t in thetas if t > 0.0] or [0.0]
+    # Thresholds below the mean need no tilt: the model itself is then a component.
+    share = 1.0 / len(thetas) if 0.0 in thetas and len(thetas) > 1 else 0.0
+    return lambda m, rng: plain_values(family.draw(nonzero, m, rng, defensive=share), a)
+
+
+class Tilted(Estimator):
+    name = "tilted"
+    listing = 20
+    ruin_infinite = RuinRegime.SIEGMUND
+    ruin_finite = RuinRegime.TILTED_PATHS
+
+    def check(self, portfolio: Portfolio) -> None:
+        check_light(portfolio)
+
+    def candidate_rank(self, portfolio: Portfolio) -> int | None:
+        return 0 if portfolio.is_light else None
+
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+        return plan(portfolio, thresholds)
+
+    def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
+                      seed: int) -> BlockFn:
+        return sampler(portfolio, points, anchors)
+
+
+ESTIMATOR = Tilted()

@@ -23,11 +23,14 @@ from __future__ import annotations
 import math
 import numbers
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
 from core.errors import MethodError, ParameterError
+from core.estimators import registry
+from core.estimators.estimator import RuinRegime
+from core.estimators.registry import AUTO
 from core.exceedance import check_seed
 from core.invariants import check_probability
 from core.precision import Precision
@@ -41,23 +44,16 @@ from core.ruin.recursion import ruin_bounds
 from core.ruin.runner import Batch, Context
 from core.ruin.siegmund import PathRegime
 from core.severities import Capped
+from core.validate import finite_numbers
 
-RUIN_METHODS = ("auto", "crude", "tilted", "conditional", "conditional_is", "recursion")
+# auto and every estimator that names a ruin regime (core.estimators.registry).
+RUIN_METHODS = registry.ruin_methods()
 
 Regime = PathRegime | GeometricRegime | JumpRegime
 
 
 def _capitals(values: Sequence[float]) -> np.ndarray:
-    try:
-        u = np.asarray(values, dtype=float)
-    except (TypeError, ValueError):
-        raise ParameterError("capital", "must be a non-empty list of numbers") from None
-    if u.ndim != 1 or u.size == 0:
-        raise ParameterError("capital", "must be a non-empty list of numbers")
-    for i, v in enumerate(u):
-        if not (math.isfinite(v) and v >= 0):
-            raise ParameterError(f"capital.{i}", f"must be a finite number >= 0, got {v!r}")
-    return u
+    return finite_numbers("capital", values, minimum=0.0)
 
 
 def _horizon(horizon: float | None) -> float:
@@ -78,41 +74,59 @@ def _target(target: float | None) -> float | None:
     return float(target)
 
 
-def _choose(ctx: Context, method: str) -> Regime:
-    process = ctx.process
-    light = process.net_severity.tail == "light"
-    if not math.isfinite(ctx.horizon):
-        if method == "tilted" or (method == "auto" and ctx.gamma is not None):
-            if ctx.gamma is None:
-                raise MethodError(
-                    "method",
-                    "tilted (Siegmund's algorithm) needs light-tailed claims with an adjustment "
-                    "coefficient; use auto or conditional, or give a retention",
-                )
-            return PathRegime(ctx, tilted=True)
-        return GeometricRegime(ctx, method)
-    if method == "conditional_is":
+def _siegmund(ctx: Context, method: str) -> Regime:
+    if ctx.gamma is None:
         raise MethodError(
             "method",
-            "conditional_is estimates the infinite-horizon Pollaczek-Khinchine sum; with a "
-            "horizon use auto, conditional, tilted or crude",
+            f"{method} (Siegmund's algorithm) needs light-tailed claims with an adjustment "
+            "coefficient; use auto or conditional, or give a retention",
         )
-    if method == "tilted" or (method == "auto" and light):
-        if not light:
-            raise MethodError(
-                "method",
-                "tilted needs light-tailed claims; use conditional or auto, or give a retention",
-            )
-        return PathRegime(ctx, tilted=True)
-    if method == "crude":
-        return PathRegime(ctx, tilted=False)
-    if isinstance(process.net_severity, Capped):
+    return PathRegime(ctx, tilted=True)
+
+
+def _tilted_paths(ctx: Context, method: str) -> Regime:
+    if ctx.process.net_severity.tail != "light":
+        raise MethodError(
+            "method",
+            f"{method} needs light-tailed claims; use conditional or auto, or give a retention",
+        )
+    return PathRegime(ctx, tilted=True)
+
+
+def _big_jump(ctx: Context, method: str) -> Regime:  # noqa: ARG001 - the REGIMES signature
+    if isinstance(ctx.process.net_severity, Capped):
         raise MethodError(
             "method",
             "conditional needs claims without an atom; a claim capped by a retention has one at "
             "the retention: use tilted or auto",
         )
     return JumpRegime(ctx)
+
+
+# How each ruin regime an estimator names (Estimator.ruin_infinite / ruin_finite) is built.
+REGIMES: dict[RuinRegime, Callable[[Context, str], Regime]] = {
+    RuinRegime.SIEGMUND: _siegmund,
+    RuinRegime.GEOMETRIC_SUM: GeometricRegime,
+    RuinRegime.TILTED_PATHS: _tilted_paths,
+    RuinRegime.CRUDE_PATHS: lambda ctx, _method: PathRegime(ctx, tilted=False),
+    RuinRegime.BIG_JUMP: _big_jump,
+}
+
+
+def _regime_kind(method: str, finite: bool, process: SurplusProcess) -> RuinRegime:
+    """The regime of `method`; auto: Siegmund where an adjustment coefficient exists, else the
+    Pollaczek-Khinchine sum; with a horizon tilted paths for light tails, else the big jump."""
+    if method == AUTO:
+        if finite:
+            light = process.net_severity.tail == "light"
+            return RuinRegime.TILTED_PATHS if light else RuinRegime.BIG_JUMP
+        has_gamma = adjustment_coefficient(process) is not None
+        return RuinRegime.SIEGMUND if has_gamma else RuinRegime.GEOMETRIC_SUM
+    est = registry.get(method)
+    kind = est.ruin_finite if finite else est.ruin_infinite
+    if kind is None:
+        raise MethodError("method", est.ruin_refusal or f"{method} does not estimate ruin")
+    return kind
 
 
 def _checked(estimates: list[RuinEstimate]) -> tuple[list[RuinEstimate], list[str]]:
@@ -130,9 +144,7 @@ def _certain(process: SurplusProcess, u: np.ndarray, target: float | None, seed:
     why = (f"the net profit condition fails (premium rate {process.premium:g} <= claim rate x "
            f"mean claim {process.claim_rate * process.mean_claim:g}): ruin is certain for "
            "every capital")
-    diag = Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                       batch_ratio=None, reliable=True, reason=f"exact: {why}",
-                       exact=True)
+    diag = Diagnostics.deterministic(f"exact: {why}", exact=True)
     estimates = [
         RuinEstimate(capital=float(v), value=1.0, std_error=0.0, relative_error=0.0, ci_low=1.0,
                      ci_high=1.0, samples=0, hits=0, diagnostics=diag, method="exact",
@@ -195,7 +207,8 @@ def ruin(
     seed = check_seed(seed)
     if not math.isfinite(horizon_t) and not process.profitable:
         return _certain(process, u, target, seed, start)
-    if method == "recursion":  # deterministic bounds (core.ruin.recursion); infinite horizon
+    kind = _regime_kind(method, math.isfinite(horizon_t), process)
+    if kind is RuinRegime.BOUNDS:  # deterministic bounds (core.ruin.recursion)
         return ruin_bounds(process, u, horizon=horizon_t, target=target, precision=precision,
                            seed=seed, start=start)
     precision = precision or Precision()
@@ -203,7 +216,7 @@ def ruin(
     gamma = adjustment_coefficient(process)
     constant = lundberg_constant(process, gamma) if gamma is not None else None
     ctx = Context(process, horizon_t, precision, seed, deadline, gamma, constant)
-    regime = _choose(ctx, method)
+    regime = REGIMES[kind](ctx, method)
     estimates, stops = regime.estimate(u, 0)
     estimates, warnings = _checked(estimates)
     warnings += report.warnings_for(estimates)

@@ -34,7 +34,8 @@ from core.ruin import report
 from core.ruin.approximations import approximation
 from core.ruin.capital import Bracket
 from core.ruin.process import SurplusProcess
-from core.ruin.runner import JUMP_PATHS, Batch, Context, run, stream_id
+from core.ruin.runner import Batch, Context, paths_stream, run
+from core.streams import Purpose
 
 _CELLS_PER_BLOCK = 1 << 20  # paths x claims kept in memory at once
 _MIN_BLOCK, _MAX_BLOCK = 64, 4096
@@ -59,7 +60,7 @@ class JumpPlan:
     def block(self) -> int:
         """Paths per block: as many as keep about 1M claim slots (depends on the model only)."""
         width = self.mean_claims + 6.0 * math.sqrt(self.mean_claims) + 2.0
-        size = 2 ** int(math.floor(math.log2(max(_CELLS_PER_BLOCK / width, 1.0))))
+        size = 2 ** math.floor(math.log2(max(_CELLS_PER_BLOCK / width, 1.0)))
         return int(min(_MAX_BLOCK, max(_MIN_BLOCK, size)))
 
 
@@ -122,7 +123,7 @@ class JumpRegime:
 
         result = run(ctx, tuple(range(capitals.size)), values,
                      work=plan.mean_claims + 4.0 * capitals.size, block=plan.block(),
-                     purpose=JUMP_PATHS, stream=stream_id(stream, 0))
+                     stream=paths_stream(Purpose.RUIN_JUMPS, self.name, stream, 0))
         diags = result.stats.diagnose()
         out = [
             report.estimate(result.stats, i, diag=diags[i], capital=float(u),

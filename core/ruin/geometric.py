@@ -14,6 +14,8 @@ import math
 import numpy as np
 
 from core.counts import NegativeBinomial
+from core.estimators import registry
+from core.estimators.registry import AUTO
 from core.exceedance import exceedance
 from core.integrated_tail import IntegratedTail
 from core.portfolio import Line, Portfolio
@@ -22,6 +24,9 @@ from core.ruin.approximations import approximation
 from core.ruin.capital import Bracket
 from core.ruin.process import SurplusProcess
 from core.ruin.runner import Batch, Context
+
+# The capital search's estimator when the requested one draws a sample set per capital.
+GRID_METHOD = "conditional"
 
 
 def geometric_sum(process: SurplusProcess) -> Portfolio:
@@ -52,10 +57,11 @@ class GeometricRegime:
     def estimate(self, capitals: np.ndarray, stream: int) -> Batch:
         ctx = self.ctx
         method = self.method
-        if stream > 0 and method != "crude":
+        shared = method != AUTO and registry.get(method).one_sample_set
+        if stream > 0 and not shared:
             # the capital search needs one sample set for all grid capitals: plain conditioning
             # has that; conditional_is (and so auto, often) draws a set per threshold
-            method = "conditional"
+            method = GRID_METHOD
             self.grid_method = method
         res = exceedance(self.portfolio, capitals.tolist(), method=method,
                          precision=ctx.remaining(), seed=ctx.seed)

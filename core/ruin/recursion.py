@@ -13,7 +13,7 @@ lower bound) and up (an upper bound), so:
   below it whose lower bound is still > target (surely too small), so the true capital lies in
   (ci_low, ci_high]; the point is where the point estimates cross the target.
 
-The grids start at core.exceedance.RECURSION_CELLS cells and double while the bounds are wider
+The grids start at core.recursion.RECURSION_CELLS cells and double while the bounds are wider
 than precision.relative_error (relative half-width), up to RECURSION_MAX_CELLS, and while the
 next grid is expected to finish within the time limit. There is no sampling: samples = 0,
 std_error None, and the same request gives the same figures.
@@ -30,10 +30,9 @@ import numpy as np
 
 from core.discretise import Grid, Lattice
 from core.errors import LimitError, MethodError
-from core.exceedance import RECURSION_CELLS, RECURSION_MAX_CELLS
 from core.portfolio import Portfolio
 from core.precision import Precision
-from core.recursion import aggregate, exceedance_bounds
+from core.recursion import RECURSION_CELLS, RECURSION_MAX_CELLS, aggregate, exceedance_bounds
 from core.results import CapitalForTarget, Diagnostics, RuinEstimate, RuinResult
 from core.ruin.approximations import approximation
 from core.ruin.capital import Bracket, crossing
@@ -60,12 +59,6 @@ def check_horizon(horizon: float) -> None:
             "Khinchine sum) only; leave horizon out, or use auto, tilted, conditional or crude "
             "with a horizon",
         )
-
-
-def _diag(cells: int) -> Diagnostics:
-    return Diagnostics(pareto_k=None, effective_samples=0.0, largest_share=None,
-                       batch_ratio=None, reliable=True,
-                       reason=f"deterministic bounds on a grid of {cells} cells")
 
 
 def _refine(
@@ -116,7 +109,7 @@ def _estimates(portfolio: Portfolio, capitals: np.ndarray, ctx: Context, precisi
         estimates.append(RuinEstimate(
             capital=float(u), value=pt, std_error=None,
             relative_error=half / pt if pt > 0 else None, ci_low=lo, ci_high=hi, samples=0,
-            hits=0, diagnostics=_diag(cells), method="recursion",
+            hits=0, diagnostics=Diagnostics.on_grid(cells), method="recursion",
             approximation=approximation(ctx, float(u))))
     return estimates, stopped, _width_notes("the ruin probabilities' bounds", stopped, width,
                                             precision.relative_error, cells)

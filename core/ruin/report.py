@@ -5,11 +5,9 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 
-from core.diagnostics import ContributionStats
+from core import intervals
+from core.diagnostics import MAX_SHARE, ContributionStats
 from core.results import Diagnostics, ExceedanceEstimate, RuinEstimate
-
-Z95 = 1.959963984540054
-LARGE_SHARE = 0.1
 
 
 def estimate(
@@ -19,12 +17,12 @@ def estimate(
     """Column `col` of `stats` times e^{log_scale} (contributions were stored scaled so that far
     tails do not underflow), with its diagnostics `diag` (stats.diagnose() covers every column
     at once: call it once per sample set). `bound` is the largest unscaled value one
-    contribution can take: with no hits, the 95% upper bound is bound * (1 - 0.05^(1/n))
-    (the rule of three scaled)."""
+    contribution can take: with no hits, the 95% upper bound is core.intervals' no-hit rule
+    scaled by it."""
     hits = int(stats.hits[col])
     mean = float(stats.mean()[col])
     if hits == 0 or mean <= 0.0:
-        high = min(1.0, bound * -math.expm1(math.log(0.05) / samples))
+        high = min(1.0, intervals.no_hit_upper(samples, bound))
         return RuinEstimate(
             capital=capital, value=0.0, std_error=None, relative_error=None, ci_low=0.0,
             ci_high=high, samples=samples, hits=0, diagnostics=diag, method=method,
@@ -33,9 +31,10 @@ def estimate(
     se = float(stats.std_error()[col])
     scale = math.exp(log_scale)  # 0 only where psi itself is below the smallest double
     p, s = mean * scale, se * scale
+    low, high = intervals.normal(p, s, upper=1.0)
     return RuinEstimate(
         capital=capital, value=p, std_error=s, relative_error=se / mean,
-        ci_low=max(0.0, p - Z95 * s), ci_high=min(1.0, p + Z95 * s), samples=samples,
+        ci_low=low, ci_high=high, samples=samples,
         hits=hits, diagnostics=diag, method=method, approximation=approximation,
     )
 
@@ -60,7 +59,7 @@ def warnings_for(estimates: Sequence[RuinEstimate]) -> list[str]:
         elif e.value == 0.0:
             notes.append(f"capital {e.capital:g}: the ruin probability is below the smallest "
                          "double and is reported as 0")
-        if d.largest_share is not None and d.largest_share > LARGE_SHARE:
+        if d.largest_share is not None and d.largest_share > MAX_SHARE:
             notes.append(f"capital {e.capital:g}: one sample carries "
                          f"{100 * d.largest_share:.0f}% of the estimate")
     return notes

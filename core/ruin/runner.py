@@ -6,23 +6,16 @@ import dataclasses
 import time
 from dataclasses import dataclass
 
-import numpy as np
-
 from core.estimators.base import BlockFn, Group
 from core.precision import GroupRun, Precision, run_group
 from core.results import RuinEstimate
 from core.ruin.process import SurplusProcess
-from core.sampling import block_rng
+from core.streams import Purpose, Stream
 
 
 class OutOfTime(Exception):
     """The request's time limit passed inside a block of the capital search (whose blocks of
     far-reaching paths can take minutes): the search stops and reports what it reached."""
-
-
-# Random-number purposes of ruin paths (core.sampling uses MAIN = 0 and PILOT = 1), so a ruin
-# request never reuses the random numbers of an exceedance request with the same seed.
-TILTED_PATHS, JUMP_PATHS = 2, 3
 
 
 @dataclass(frozen=True)
@@ -43,24 +36,13 @@ class Context:
         return dataclasses.replace(self.precision, time_limit_s=left)
 
 
-def on_purpose(fn: BlockFn, purpose: int) -> BlockFn:
-    """run_group hands each block the generator of (seed, MAIN, group, block); draw instead from
-    (seed, purpose, group, block): the same block plan, on a stream of ruin's own."""
-
-    def values(m: int, rng: np.random.Generator) -> np.ndarray:
-        seq = rng.bit_generator.seed_seq
-        assert isinstance(seq, np.random.SeedSequence)
-        _, group, block = seq.spawn_key
-        return fn(m, block_rng(int(seq.entropy), purpose, group, block))  # type: ignore[arg-type]
-
-    return values
-
-
 def run(
     ctx: Context, indices: tuple[int, ...], fn: BlockFn, *, work: float, block: int,
-    purpose: int, stream: int, detail: str = "",
+    stream: Stream, detail: str = "",
 ) -> GroupRun:
-    group = Group(indices, on_purpose(fn, purpose), max(1.0, work), detail)
+    """Run one sample set of paths; `stream` keys its random numbers (core.streams: ruin paths
+    have purposes of their own, so they never reuse an exceedance request's draws)."""
+    group = Group(indices, fn, max(1.0, work), detail)
     return run_group(group, block, ctx.precision, ctx.seed, stream, ctx.deadline)
 
 
@@ -68,7 +50,7 @@ def run(
 Batch = tuple[list[RuinEstimate], list[str]]
 
 
-def stream_id(stream: int, part: int) -> int:
-    """Group id of part `part` of sample set `stream` (0: the capitals asked for; 1, 2, ...:
-    the grids of the capital search)."""
-    return (stream << 16) + part
+def paths_stream(purpose: Purpose, method: str, sample_set: int, part: int) -> Stream:
+    """The stream of part `part` (a tilt set) of sample set `sample_set` (0: the capitals asked
+    for; 1, 2, ...: the grids of the capital search)."""
+    return Stream(purpose, method, (sample_set, part))

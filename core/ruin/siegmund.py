@@ -26,7 +26,8 @@ from core.ruin.capital import Bracket
 from core.ruin.lundberg import doob_capital, horizon_tilt
 from core.ruin.measure import ClaimTilt, claim_tilt, exact_tilt, siegmund_tilt
 from core.ruin.paths import PATHS_PER_BLOCK, PathPlan, passage_values
-from core.ruin.runner import TILTED_PATHS, Batch, Context, run, stream_id
+from core.ruin.runner import Batch, Context, paths_stream, run
+from core.streams import Purpose, Stream
 
 
 class PathRegime:
@@ -86,11 +87,11 @@ class PathRegime:
         found: dict[int, RuinEstimate] = {}
         stops = []
         for part, (tilt, idx) in enumerate(sets.values()):
-            stops.append(self._run(capitals, tilt, idx, stream_id(stream, part), found,
-                                   search=stream > 0))
+            key = paths_stream(Purpose.RUIN_PATHS, self.name, stream, part)
+            stops.append(self._run(capitals, tilt, idx, key, found, search=stream > 0))
         return [found[i] for i in range(capitals.size)], stops
 
-    def _run(self, capitals: np.ndarray, tilt: ClaimTilt, idx: list[int], group: int,
+    def _run(self, capitals: np.ndarray, tilt: ClaimTilt, idx: list[int], key: Stream,
              found: dict[int, RuinEstimate], *, search: bool = False) -> str:
         ctx = self.ctx
         mine = capitals[idx]
@@ -103,7 +104,7 @@ class PathRegime:
             return passage_values(plan, m, rng)[:, back]
 
         result = run(ctx, tuple(idx), values, work=plan.work, block=PATHS_PER_BLOCK,
-                     purpose=TILTED_PATHS, stream=group)
+                     stream=key)
         process = ctx.process
         drift = process.claim_rate * math.expm1(tilt.log_w) - process.premium * tilt.a
         # largest contribution: e^{-a u} at most, times e^{kappa_s(a) T} under a steeper tilt

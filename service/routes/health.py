@@ -5,11 +5,12 @@
 
 from importlib.metadata import PackageNotFoundError, version
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Request
 
 import core
 from service.deps import PoolDep
-from service.schemas.health import HealthResponse
+from service.schemas.health import HealthResponse, StoreStatus
+from service.worker import RunWorker
 
 
 def _service_version() -> str:
@@ -24,9 +25,14 @@ def build_router() -> APIRouter:
     service_version = _service_version()
 
     @router.get("/health", response_model=HealthResponse, summary="Service health")
-    async def get_health(pool: PoolDep) -> HealthResponse:
+    async def get_health(pool: PoolDep, request: Request) -> HealthResponse:
+        worker: RunWorker = request.app.state.runs
+        fault = worker.store_fault  # remembered from the last store operations: no disk I/O
+        store = StoreStatus(status="ok", message=None, since=None) if fault is None else (
+            StoreStatus(status=fault.kind, message=fault.message, since=fault.since))
         return HealthResponse(
-            status="ok",
+            status="ok" if fault is None else "degraded",
+            store=store,
             engine_version=core.ENGINE_VERSION,
             service_version=service_version,
             executor=pool.kind,

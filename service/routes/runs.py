@@ -12,6 +12,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Body, Depends, Header, HTTPException, Query, Request, Response
 from fastapi.exceptions import RequestValidationError
 
+from service.auth import CallerDep
 from service.errors import detail_entry
 from service.examples import load_examples
 from service.routes.responses import ERROR_RESPONSES, ErrorBody
@@ -33,8 +34,15 @@ def _worker(request: Request) -> RunWorker:
 
 WorkerDep = Annotated[RunWorker, Depends(_worker)]
 
+_STORE_UNAVAILABLE: dict[int | str, dict[str, Any]] = {
+    503: {"model": ErrorBody, "description": "The run store cannot be used now (disk full: "
+          "store_full; locked by another process: store_busy; I/O error: store_error); "
+          "retry after the Retry-After seconds."},
+}
 _NOT_FOUND: dict[int | str, dict[str, Any]] = {
-    404: {"model": ErrorBody, "description": "No run with this run_id."}
+    404: {"model": ErrorBody, "description": "No run with this run_id (or it belongs to "
+          "another token)."},
+    **_STORE_UNAVAILABLE,
 }
 
 
@@ -83,11 +91,13 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
             409: {"model": ErrorBody, "description": "The Idempotency-Key was used for a "
                   "different batch."},
             **ERROR_RESPONSES,
+            **_STORE_UNAVAILABLE,
         },
     )
     async def post_run(
         body: Annotated[RunBatchIn, Body(openapi_examples=examples)],
         worker: WorkerDep,
+        caller: CallerDep,
         response: Response,
         idempotency_key: Annotated[str | None, Header(
             alias=IDEMPOTENCY_HEADER, min_length=1, max_length=200,
@@ -99,7 +109,8 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
         """Store the batch and compute its items in the background (202). Each item's result
         is the body its synchronous endpoint would return; poll GET /v1/runs/{run_id}."""
         try:
-            run, created = await worker.submit(body, idempotency_key=idempotency_key)
+            run, created = await worker.submit(body, idempotency_key=idempotency_key,
+                                               owner=caller.owner)
         except BatchRejected as exc:
             raise RequestValidationError(exc.detail) from None
         except IdempotencyConflict as exc:
@@ -113,9 +124,11 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
             response.status_code = 200
         return RunAccepted(run_id=run.run_id, status=run.status)
 
-    @router.get("/runs", response_model=RunList, summary="List runs", responses=ERROR_RESPONSES)
+    @router.get("/runs", response_model=RunList, summary="List runs",
+                responses={**ERROR_RESPONSES, **_STORE_UNAVAILABLE})
     async def list_runs(
         worker: WorkerDep,
+        caller: CallerDep,
         status: Annotated[RunStatusName | None, Query(
             description="Only runs with this status.")] = None,
         limit: Annotated[int, Query(
@@ -134,7 +147,7 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
             )])
         before = None if cursor is None else _decode_cursor(cursor)
         page = await worker.list_runs(status=status, limit=limit + 1, offset=offset or 0,
-                                      before_seq=before)
+                                      before_seq=before, owner=caller.owner)
         more = len(page) > limit
         page = page[:limit]
         return RunList(
@@ -144,29 +157,29 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
 
     @router.get("/runs/{run_id}", response_model=RunOut, summary="Status and results of a run",
                 responses=_NOT_FOUND)
-    async def get_run(run_id: str, worker: WorkerDep) -> RunOut:
+    async def get_run(run_id: str, worker: WorkerDep, caller: CallerDep) -> RunOut:
         """Status, progress and the results of the run's finished items."""
-        view = await worker.view(run_id)
+        view = await worker.view(run_id, owner=caller.owner)
         if view is None:
             raise _not_found(run_id)
         return view
 
     @router.get("/runs/{run_id}/batch", response_model=RunBatchIn,
                 summary="The batch of a run, seeds included", responses=_NOT_FOUND)
-    async def get_run_batch(run_id: str, worker: WorkerDep) -> RunBatchIn:
+    async def get_run_batch(run_id: str, worker: WorkerDep, caller: CallerDep) -> RunBatchIn:
         """The batch as stored, with the seed of every item: POST it again to repeat the run
         exactly (same engine version, same figures)."""
-        batch = await worker.batch(run_id)
+        batch = await worker.batch(run_id, owner=caller.owner)
         if batch is None:
             raise _not_found(run_id)
         return batch
 
     @router.delete("/runs/{run_id}", response_model=RunOut, summary="Cancel a run",
                    responses=_NOT_FOUND)
-    async def cancel_run(run_id: str, worker: WorkerDep) -> RunOut:
+    async def cancel_run(run_id: str, worker: WorkerDep, caller: CallerDep) -> RunOut:
         """Queued items are not run; running ones may finish and keep their results. A run
         that has already finished is left as it is (the call is safe to repeat)."""
-        view = await worker.cancel(run_id)
+        view = await worker.cancel(run_id, owner=caller.owner)
         if view is None:
             raise _not_found(run_id)
         return view

@@ -7,9 +7,11 @@ choosing; thresholds, retentions, limits and severity scales must all use the sa
 
 from __future__ import annotations
 
-from typing import Annotated, Any, Literal
+from typing import TYPE_CHECKING, Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+import core
 
 # JavaScript clients hold integers exactly only up to 2**53 - 1; seeds stay inside that range.
 MAX_JSON_SAFE_INT = 2**53 - 1
@@ -146,6 +148,27 @@ class GeneralizedParetoSeverity(RequestModel):
     scale: PositiveMoney = Field(description="Scale in money units (0 < scale <= 10^18).")
 
 
+class SplicedTail(RequestModel):
+    xi: Annotated[float, Field(strict=True, allow_inf_nan=False, ge=-10, le=10)] = Field(
+        description="Generalized Pareto shape of the excess over the threshold.")
+    scale: PositiveMoney = Field(description="Generalized Pareto scale in money units.")
+
+
+class SplicedSeverity(RequestModel):
+    family: Literal["spliced"] = Field(
+        description="A body law below a threshold and a generalized Pareto tail above it "
+        "(as /v1/fit returns it): density w f_body(x) / F_body(threshold) at or below the "
+        "threshold, (1 - w) g(x - threshold) above."
+    )
+    threshold: PositiveMoney = Field(description="Splice point in money units.")
+    body_weight: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, lt=1)] = Field(
+        description="Probability w that a claim is at or below the threshold.")
+    body: Annotated[LognormalSeverity | GammaSeverity, Field(discriminator="family")] = Field(
+        description="Body law (lognormal or gamma), truncated to the threshold.")
+    tail: SplicedTail = Field(description="Generalized Pareto law of the excess over the "
+                              "threshold.")
+
+
 Severity = Annotated[
     LognormalSeverity
     | ParetoSeverity
@@ -153,7 +176,8 @@ Severity = Annotated[
     | GammaSeverity
     | ExponentialSeverity
     | NormalSeverity
-    | GeneralizedParetoSeverity,
+    | GeneralizedParetoSeverity
+    | SplicedSeverity,
     Field(discriminator="family", description="Claim-size distribution, by family."),
 ]
 
@@ -162,10 +186,27 @@ def severity_upper_end(severity: Severity) -> float | None:
     """Right end of the claim-size support, or None when unbounded."""
     if isinstance(severity, GeneralizedParetoSeverity) and severity.xi < 0:
         return severity.scale / -severity.xi
+    if isinstance(severity, SplicedSeverity) and severity.tail.xi < 0:
+        return severity.threshold + severity.tail.scale / -severity.tail.xi
     return None
 
 
 # --- portfolio ------------------------------------------------------------------------------
+
+
+class ParameterUncertaintySpec(RequestModel):
+    covariance: list[list[Annotated[float, Field(strict=True, allow_inf_nan=False)]]] = Field(
+        min_length=1, max_length=8,
+        description="Covariance matrix of the severity's parameters, rows and columns in the "
+        "order of the severity's fields after family (e.g. mu, sigma; for spliced: the body's "
+        "two, body_weight, tail xi, tail scale), as /v1/fit returns it. Symmetric, positive "
+        "semi-definite.",
+    )
+    draws: Annotated[int, Field(strict=True, ge=20, le=1000)] = Field(
+        default=100,
+        description="Parameter draws of the nested simulation (20 .. 1000); each costs one "
+        "run of the request's figures.",
+    )
 
 
 class LineSpec(RequestModel):
@@ -184,6 +225,12 @@ class LineSpec(RequestModel):
     limit: PositiveMoney | None = Field(
         default=None,
         description="Per-claim limit in money units (0 < limit <= 10^18); null = unlimited.",
+    )
+    parameter_uncertainty: ParameterUncertaintySpec | None = Field(
+        default=None,
+        description="Uncertainty of the severity's parameters (e.g. from /v1/fit): the "
+        "figures then also carry an interval that includes it, from a nested simulation "
+        "over parameter draws. Absent: the parameters are taken as known.",
     )
 
     @model_validator(mode="wrap")
@@ -215,24 +262,30 @@ class LineSpec(RequestModel):
 class PortfolioSpec(RequestModel):
     lines: list[LineSpec] = Field(
         min_length=1,
-        description="Independent lines of business; the portfolio loss S is the sum of their "
-        "per-period aggregate losses. A line may instead be a line of obligors "
-        "{label?, obligors: group | [group...]} (see service/schemas/credit.py): then every "
-        "line must be one, on portfolio.factors.",
+        description="Lines of business (independent unless `dependence` is given); the "
+        "portfolio loss S is the sum of their per-period aggregate losses. A line may instead "
+        "be a line of obligors {label?, obligors: group | [group...]} (see "
+        "service/schemas/credit.py): then every line must be one, on portfolio.factors.",
     )
     factors: FactorsSpec | None = Field(
         default=None, description="Systematic factors of the obligor groups.")
     dependence: DependenceSpec | None = Field(
-        default=None, description="Copula of the factor model (gaussian when absent).")
+        default=None, description="Copula coupling the lines' period losses (claim lines: "
+        "correlation required; absent = independent), or the copula of the obligors' factor "
+        "model (gaussian when absent).")
 
 
 # --- method and precision -------------------------------------------------------------------
 
-Method = Literal["auto", "crude", "tilted", "conditional", "conditional_is", "recursion"]
-# Portfolio requests also take the credit estimator (ruin keeps Method).
-PortfolioMethod = Literal[
-    "auto", "crude", "tilted", "conditional", "conditional_is", "recursion", "glasserman_li"
-]
+# The methods are the core's estimator registry (core.estimators.registry): a new estimator
+# appears in the schema without an edit here. Portfolio requests also take the credit
+# estimator (ruin keeps Method). Type checkers see a plain str.
+if TYPE_CHECKING:
+    Method = str
+    PortfolioMethod = str
+else:
+    Method = Literal[core.METHODS]
+    PortfolioMethod = Literal[(*core.METHODS, "mean_shift", "radial", "glasserman_li")]
 
 METHOD_DESCRIPTION = (
     "Estimator: auto (chosen from the model's tails and a short pilot), crude (plain Monte "
@@ -240,7 +293,9 @@ METHOD_DESCRIPTION = (
     "conditional Monte Carlo, heavy tails), conditional_is (conditional Monte Carlo over which "
     "claim is largest), recursion (deterministic discretised recursion with lower and upper "
     "bounds), glasserman_li (two-step importance sampling of Glasserman and Li 2005, for "
-    "obligor groups)."
+    "obligor groups); for a dependent portfolio also mean_shift (importance sampling on the "
+    "copula's normals) and radial (Kortschak-Hashorva, correlated lognormal amounts; "
+    "exceedance only)."
 )
 
 
@@ -352,6 +407,7 @@ class ComputationOut(BaseModel):
     warnings: list[str] = Field(description="Things the caller should know about these figures.")
 
 
-from service.schemas.credit import DependenceSpec, FactorsSpec  # noqa: E402
+from service.schemas.credit import FactorsSpec  # noqa: E402
+from service.schemas.dependence import DependenceSpec  # noqa: E402
 
 PortfolioSpec.model_rebuild()

@@ -74,20 +74,6 @@ class FactorsSpec(RequestModel):
         "definite); absent = independent factors.")
 
 
-class DependenceSpec(RequestModel):
-    copula: Literal["gaussian", "student_t"] = Field(
-        default="gaussian", description="gaussian, or student_t: every latent variable "
-        "divided by the common sqrt(W / df), W chi-square(df).")
-    df: Annotated[float, Field(strict=True, allow_inf_nan=False, gt=0, le=1e6)] | None = Field(
-        default=None, description="Degrees of freedom of the student_t copula (> 0).")
-
-    @model_validator(mode="after")
-    def _df_for_t(self) -> DependenceSpec:
-        if self.copula == "student_t" and self.df is None:
-            raise ValueError("a student_t copula needs df")
-        return self
-
-
 class ContributionOut(BaseModel):
     label: str = Field(description="The obligor group (its label, else 'line i group j').")
     tvar_contribution: float | None = Field(

@@ -5,6 +5,7 @@ from __future__ import annotations
 from pydantic import BaseModel, Field
 
 from service.schemas.common import ComputationOut, DiagnosticsOut, Money, PortfolioRequest
+from service.schemas.parameter_risk import ParameterIntervalOut
 
 
 class ExceedanceRequest(PortfolioRequest):
@@ -39,9 +40,18 @@ class ExceedanceEstimateOut(BaseModel):
     diagnostics: DiagnosticsOut = Field(
         description="How far this estimate's own error bar can be trusted."
     )
+    probability_with_parameters: ParameterIntervalOut | None = Field(
+        default=None,
+        description="With parameter_uncertainty on a line: the interval of the probability "
+        "that also "
+        "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
+    )
 
 
 class ExceedanceResponse(ComputationOut):
     estimates: list[ExceedanceEstimateOut] = Field(
         description="One estimate per requested threshold, in request order."
     )
+    parameter_draws: int | None = Field(
+        default=None, description="Parameter draws of the nested simulation (lines with "
+        "parameter_uncertainty only).")

@@ -12,6 +12,7 @@ from service.schemas.common import (
     PositiveMoney,
     RequestModel,
 )
+from service.schemas.parameter_risk import ParameterIntervalOut
 
 
 class LayerSpec(RequestModel):
@@ -81,8 +82,17 @@ class LayerOut(BaseModel):
     diagnostics: DiagnosticsOut = Field(
         description="How far the error bar of the layer's expected loss can be trusted."
     )
+    expected_loss_with_parameters: ParameterIntervalOut | None = Field(
+        default=None,
+        description="With parameter_uncertainty on a line: the interval of the expected "
+        "loss that also "
+        "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
+    )
 
 
 class LayersResponse(ComputationOut):
     samples: int = Field(description="Number of samples (simulated periods) behind the figures.")
     layers: list[LayerOut] = Field(description="One result per requested layer, in request order.")
+    parameter_draws: int | None = Field(
+        default=None, description="Parameter draws of the nested simulation (lines with "
+        "parameter_uncertainty only).")

@@ -10,6 +10,7 @@ from pydantic_core import PydanticCustomError
 
 from service.schemas.common import ComputationOut, DiagnosticsOut, Money, PortfolioRequest
 from service.schemas.credit import ContributionOut
+from service.schemas.parameter_risk import ParameterIntervalOut
 
 # 1 - 1/T must stay distinguishable from 1 in double precision (about 1e-16 apart).
 RETURN_PERIOD_MAX = 1e12
@@ -89,10 +90,21 @@ class MeasureOut(BaseModel):
     diagnostics: DiagnosticsOut = Field(
         description="How far the error bar of the exceedance estimate at VaR_q can be trusted."
     )
+    var_with_parameters: ParameterIntervalOut | None = Field(
+        default=None,
+        description="With parameter_uncertainty on a line: the interval of VaR_q that also "
+        "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
+    )
+    tvar_with_parameters: ParameterIntervalOut | None = Field(
+        default=None,
+        description="With parameter_uncertainty on a line: the interval of TVaR_q that also "
+        "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
+    )
     contributions: list[ContributionOut] = Field(
         default_factory=list,
-        description="Euler allocation of TVaR_q to the obligor groups (they sum to TVaR_q); "
-        "empty for a portfolio of claim lines.",
+        description="Euler allocation of TVaR_q to the lines of a dependent portfolio "
+        "(E[S_i | S > VaR_q] from the same samples) or to the obligor groups; they sum to "
+        "TVaR_q. Empty for independent claim lines.",
     )
 
 
@@ -116,6 +128,11 @@ class CurvePointOut(BaseModel):
     diagnostics: DiagnosticsOut = Field(
         description="How far the error bar of the exceedance estimate at this loss can be "
         "trusted."
+    )
+    loss_with_parameters: ParameterIntervalOut | None = Field(
+        default=None,
+        description="With parameter_uncertainty on a line: the interval of the loss that also "
+        "includes the parameter uncertainty, and which part dominates. Absent otherwise.",
     )
 
 
@@ -164,3 +181,6 @@ class RiskMeasuresResponse(ComputationOut):
         description="Exceedance probability and return period per requested loss, in request "
         "order (empty when none were asked for)."
     )
+    parameter_draws: int | None = Field(
+        default=None, description="Parameter draws of the nested simulation (lines with "
+        "parameter_uncertainty only).")

@@ -11,13 +11,14 @@ from pydantic_core import PydanticCustomError
 from service.routes.responses import ErrorEntry
 from service.schemas.common import RequestModel
 
-KindName = Literal["exceedance", "risk_measures", "layers", "ruin"]
+KindName = Literal["exceedance", "risk_measures", "layers", "ruin", "fit"]
 RunStatusName = Literal["queued", "running", "done", "failed", "cancelled"]
 Label = Annotated[str, Field(strict=True, min_length=1, max_length=200)]
 
 KIND_DESCRIPTION = (
     "Which computation the item asks for: exceedance (POST /v1/exceedance), risk_measures "
-    "(POST /v1/risk-measures), layers (POST /v1/layers) or ruin (POST /v1/ruin). A kind this "
+    "(POST /v1/risk-measures), layers (POST /v1/layers), ruin (POST /v1/ruin) or fit (POST "
+    "/v1/fit). A kind this "
     "server does not offer yet is refused (422)."
 )
 

@@ -5,17 +5,20 @@ from __future__ import annotations
 import asyncio
 import inspect
 import math
+from pathlib import Path
 from typing import Any
 
 import httpx
 import pytest
-from client_harness import Served
+from client_harness import Served, start_server, stop_server
 from scipy import stats
 
 from client import (
     AsyncClient,
     Client,
     ExceedanceResult,
+    NotAuthorized,
+    NotFound,
     RequestRejected,
     RiskMeasuresResult,
 )
@@ -145,3 +148,33 @@ def test_sync_and_async_clients_offer_the_same_methods() -> None:
     sync, not_sync = _public(Client), _public(AsyncClient)
     sync["aclose"] = sync.pop("close")
     assert sync == not_sync
+
+
+def test_fit_recovers_scipy_s_lognormal_mle(server: Served) -> None:
+    sample = stats.lognorm(s=1.5, scale=math.exp(1.0)).rvs(size=400, random_state=7)
+    with Client(server.base_url) as tg:
+        fitted = tg.fit(claims=[float(x) for x in sample], families=["lognormal"], seed=3,
+                        bootstrap={"replicates": 9})
+    row = fitted.to_rows()[0]
+    # Reference: scipy.stats.lognorm.fit with the location fixed at 0 (the MLE in closed form).
+    shape, _, scale = stats.lognorm.fit(sample, floc=0)
+    assert row["family"] == "lognormal"
+    assert row["param_sigma"] == pytest.approx(shape, rel=1e-4)
+    assert row["param_mu"] == pytest.approx(math.log(scale), rel=1e-4)
+
+
+def test_runs_are_private_to_their_token(tmp_path: Path) -> None:
+    served = start_server(tmp_path / "data", tmp_path / "server.log",
+                          TAILGAUGE_TOKENS="alpha-token,beta-token")
+    try:
+        batch = {"name": "private", "items": [{"id": "one", "kind": "exceedance", "request": {
+            "portfolio": BOOK, "thresholds": [30.0], "precision": {"samples": 1000}}}]}
+        with Client(served.base_url, token="alpha-token") as alpha:
+            run_id = alpha.submit_run(batch).run_id
+            assert alpha.get_run(run_id).run_id == run_id
+        with Client(served.base_url, token="beta-token") as beta, pytest.raises(NotFound):
+            beta.get_run(run_id)  # another token's run is not even acknowledged
+        with Client(served.base_url) as anonymous, pytest.raises(NotAuthorized):
+            anonymous.get_run(run_id)
+    finally:
+        stop_server(served)

@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from core import intervals
 from core.diagnostics import ContributionStats, pareto_khat, psis_tail_size
 from core.errors import ParameterError
 
@@ -96,7 +97,8 @@ def test_merged_chunks_match_numpy_on_the_whole_array() -> None:
     np.testing.assert_array_equal(acc.maximum, values.max(axis=0))
     np.testing.assert_array_equal(acc.top, np.sort(values, axis=0)[::-1][:64])
     sums = np.add.reduceat(values, np.arange(0, n, 3_000), axis=0)
-    np.testing.assert_allclose(acc.chunk_sums, sums, rtol=1e-13)
+    chunk_sums = np.ldexp(acc.chunk_mean * acc.chunk_count[:, None], acc.chunk_exponent)
+    np.testing.assert_allclose(chunk_sums, sums, rtol=1e-13)
     np.testing.assert_array_equal(acc.chunk_count[:-1], 3_000)
 
 
@@ -110,8 +112,8 @@ def test_merge_order_and_grouping_do_not_change_the_result() -> None:
     shuffled = [parts[i] for i in np.random.default_rng(0).permutation(len(parts))]
     chained = shuffled[0]
     for p in shuffled[1:]:
-        chained = p.merge(chained)
-    pairs = [shuffled[i].merge(shuffled[i + 1]) for i in range(0, len(shuffled), 2)]
+        chained = ContributionStats.combine([p, chained])
+    pairs = [ContributionStats.combine(shuffled[i:i + 2]) for i in range(0, len(shuffled), 2)]
     tree = ContributionStats.combine(pairs)
     for other in (chained, tree):
         # Bit-identical: totals are recomputed from the chunk records in chunk order.
@@ -140,9 +142,9 @@ def test_chunks_of_very_different_magnitude_merge_exactly() -> None:
     # One chunk near 1e-100, one near 1e-250: squares of the second underflow in float64.
     u = np.exp(0.5 * draws(4, 2_000))
     big, small = u[:1_000] * 1e-100, u[1_000:] * 1e-250
-    acc = ContributionStats.from_samples(small, chunk=1).merge(
-        ContributionStats.from_samples(big, chunk=0)
-    )
+    acc = ContributionStats.combine([
+        ContributionStats.from_samples(small, chunk=1), ContributionStats.from_samples(big, chunk=0)
+    ])
     # numpy reference in units of 1e-100, where everything stays representable.
     ref = np.concatenate([big, small]) * 1e100
     np.testing.assert_allclose(acc.mean() * 1e100, ref.mean(axis=0), rtol=1e-13)
@@ -165,12 +167,15 @@ def test_interval_is_the_normal_interval_clipped_to_its_range() -> None:
     values[::2, 0] = 0.0  # mean 0.5
     values[:2, 1] = 0.0  # mean 0.95, whose normal interval reaches past 1
     acc = ContributionStats.from_samples(values)
-    low, high = acc.ci(upper_clip=1.0)
     z = stats.norm.ppf(0.975)  # 1.959964 (scipy)
+    assert intervals.Z95 == pytest.approx(z, rel=1e-15)
     mean, se = acc.mean(), acc.std_error()
-    np.testing.assert_allclose(low, np.maximum(mean - z * se, 0), rtol=1e-15)
-    np.testing.assert_allclose(high, np.minimum(mean + z * se, 1.0), rtol=1e-15)
-    assert high[1] == 1.0 and mean[1] + z * se[1] > 1.0
+    for j in range(2):
+        low, high = intervals.normal(float(mean[j]), float(se[j]), upper=1.0)
+        assert low == pytest.approx(max(mean[j] - z * se[j], 0.0), rel=1e-15)
+        assert high == pytest.approx(min(mean[j] + z * se[j], 1.0), rel=1e-15)
+    assert intervals.normal(float(mean[1]), float(se[1]), upper=1.0)[1] == 1.0
+    assert mean[1] + z * se[1] > 1.0
 
 
 # --- verdicts -------------------------------------------------------------------------------
@@ -180,12 +185,17 @@ def test_no_hits_gives_a_one_sided_bound_and_an_unreliable_verdict() -> None:
     (d,) = acc.diagnose()
     assert not d.reliable and "no sample reached the event" in d.reason
     assert d.pareto_k is None and d.largest_share is None and d.effective_samples == 0.0
-    low, high = acc.ci(upper_clip=1.0)
+    high = intervals.no_hit_upper(acc.n)
     # Rule of three: no event in n draws bounds p by about 3/n at 95% (Hanley & Lippman-Hand,
-    # JAMA 1983, from memory); exactly 1 - 0.05**(1/n).
-    assert low[0] == 0.0
-    assert high[0] == pytest.approx(1 - 0.05 ** (1 / n), rel=1e-12)
-    assert high[0] == pytest.approx(3 / n, rel=0.01)
+    # JAMA 1983, from memory); exactly 1 - 0.05**(1/n), the Clopper-Pearson bound for zero hits
+    # (scipy's beta quantile).
+    assert high == pytest.approx(1 - 0.05 ** (1 / n), rel=1e-12)
+    assert high == pytest.approx(float(stats.beta.ppf(0.95, 1, n)), rel=1e-9)
+    assert high == pytest.approx(3 / n, rel=0.01)
+    # and for hits, the two-sided exact interval is scipy's binomtest's (Clopper-Pearson)
+    ci = stats.binomtest(7, 1000).proportion_ci(confidence_level=0.95, method="exact")
+    low7, high7 = intervals.clopper_pearson(7, 1000)
+    assert (low7, high7) == pytest.approx((ci.low, ci.high), rel=1e-9)
 
 
 def test_crude_monte_carlo_with_five_hits_is_unreliable() -> None:
@@ -309,8 +319,9 @@ def test_invalid_inputs_raise_errors_naming_the_argument() -> None:
     with pytest.raises(ParameterError, match="top_k"):
         ContributionStats.from_samples(np.ones((4, 2)), top_k=0)
     with pytest.raises(ParameterError, match="chunk"):
-        good.merge(ContributionStats.from_samples(np.ones((4, 2))))  # both chunk 0
+        ContributionStats.combine([good, ContributionStats.from_samples(np.ones((4, 2)))])
     with pytest.raises(ParameterError, match="top_k"):
-        good.merge(ContributionStats.from_samples(np.ones((4, 2)), top_k=8, chunk=1))
+        ContributionStats.combine(
+            [good, ContributionStats.from_samples(np.ones((4, 2)), top_k=8, chunk=1)])
     with pytest.raises(ParameterError, match="values"):
-        good.merge(ContributionStats.from_samples(np.ones((4, 3)), chunk=1))
+        ContributionStats.combine([good, ContributionStats.from_samples(np.ones((4, 3)), chunk=1)])

@@ -16,11 +16,11 @@ from core import (
     Portfolio,
     Precision,
     SurplusProcess,
-    exceedance,
-    ruin,
 )
+from core.exceedance import exceedance
 from core.invariants import check_probability
 from core.results import Diagnostics, ExceedanceEstimate
+from core.ruin.api import ruin
 
 
 def _diag() -> Diagnostics:

@@ -350,5 +350,5 @@ def test_too_many_cells_raise_limit_error():
     assert info.value.parameter == "grid"
     with pytest.raises(ParameterError):
         exceedance_bounds(port, [10.0], cells=4)
-    with pytest.raises(ParameterError, match="thresholds.1"):
+    with pytest.raises(ParameterError, match=r"thresholds\.1"):
         exceedance_bounds(port, [10.0, math.inf], cells=64)

@@ -5,7 +5,8 @@ from __future__ import annotations
 
 from scipy import stats
 
-from core import Fixed, Gamma, Line, Lognormal, Portfolio, Precision, exceedance
+from core import Fixed, Gamma, Line, Lognormal, Portfolio, Precision
+from core.exceedance import exceedance
 
 
 def iid(n: int, severity) -> Portfolio:

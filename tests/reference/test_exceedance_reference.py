@@ -17,8 +17,8 @@ from core import (
     Poisson,
     Portfolio,
     Precision,
-    exceedance,
 )
+from core.exceedance import exceedance
 
 
 def single(count, severity, **layer) -> Portfolio:

@@ -7,7 +7,8 @@ from __future__ import annotations
 
 import pytest
 
-from core import Fixed, Line, Lognormal, Portfolio, Precision, exceedance
+from core import Fixed, Line, Lognormal, Portfolio, Precision
+from core.exceedance import exceedance
 from core.recursion import exceedance_bounds
 
 

@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 from scipy.linalg import expm
 
-from core import Exponential, MethodError, Pareto, Precision, SurplusProcess, ruin
+from core import Exponential, MethodError, Pareto, Precision, SurplusProcess
+from core.ruin.api import ruin
 from core.severities import PhaseType
 
 

@@ -11,9 +11,10 @@ import pytest
 from scipy import integrate, stats
 from scipy.linalg import expm
 
-from core import Exponential, Lognormal, Pareto, Poisson, Precision, SurplusProcess, ruin
+from core import Exponential, Lognormal, Pareto, Poisson, Precision, SurplusProcess
 from core.portfolio import Line, Portfolio
 from core.recursion import aggregate_bounds, exceedance_bounds
+from core.ruin.api import ruin
 from core.ruin.geometric import geometric_sum
 from core.severities import PhaseType
 
@@ -140,8 +141,11 @@ def test_heavy_tails_near_1e_minus_3_and_1e_minus_6_with_1e5_samples(severity, t
 def test_lomax_far_out_agrees_with_the_subexponential_asymptotic():
     # psi(u) ~ rho / (1 - rho) sf_I(u) (subexponential asymptotic; Embrechts & Veraverbeke). The
     # next term, E[N(N-1)] E[I] f_I(u) (Omey & Willekens, from memory), is a relative
-    # 2 rho / (1 - rho) E[I] f_I / sf_I = 20 / (1 + u/2) here: the estimate must agree to within
-    # it plus three standard errors, and the gap must shrink with u.
+    # 2 rho / (1 - rho) E[I] f_I / sf_I = 20 / (1 + u/2) here. The gap between the estimate and
+    # the first term must be that second term, up to three standard errors and the expansion's
+    # remainder, which is o(1/u): allowed 5% of the second term this far out (the integrated
+    # tail, Pareto alpha 2, has no second moment, so no third term is quoted; with two seeds and
+    # two stream layouts the remainder measured about 2% at u = 4470). The gap shrinks with u.
     p = SurplusProcess(claim_rate=1.0, severity=Pareto(alpha=3.0, scale=2.0), loading=0.2)
     caps = [4470.0, 1e5]
     res = ruin(p, caps, method="conditional", precision=Precision(samples=50_000), seed=5)
@@ -150,7 +154,8 @@ def test_lomax_far_out_agrees_with_the_subexponential_asymptotic():
         first = 5.0 * (1 + est.capital / 2) ** -2
         assert est.approximation == pytest.approx(first, rel=1e-12)
         gap = abs(est.probability / first - 1)
-        assert gap <= 20.0 / (1 + est.capital / 2) + 3 * est.relative_error
+        second = 20.0 / (1 + est.capital / 2)
+        assert abs(gap - second) <= 0.05 * second + 3 * est.relative_error, (gap, second)
         gaps.append(gap)
     assert gaps[1] < gaps[0]
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 import json
 from pathlib import Path
 
@@ -135,7 +136,7 @@ def test_ruin_example_answers_with_sensible_figures(client, path: Path):
         assert 0.0 <= e["ci_low"] <= e["probability"] <= e["ci_high"] <= 1.0
         assert isinstance(e["diagnostics"]["reliable"], bool) and e["diagnostics"]["reason"]
     # More capital cannot make ruin likelier (beyond sampling noise).
-    for e0, e1 in zip(estimates, estimates[1:], strict=False):
+    for e0, e1 in itertools.pairwise(estimates):
         if e1["capital"] > e0["capital"]:
             assert e1["probability"] <= e0["probability"] + 4 * (e0["std_error"] or 0.0)
     if "target_probability" in body:

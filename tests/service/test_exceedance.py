@@ -130,7 +130,7 @@ def _broken_result(*_: Any, **__: Any) -> ExceedanceResult:
 
 
 def test_non_finite_engine_figures_become_null(client, small_request, monkeypatch):
-    monkeypatch.setattr(core, "exceedance", _broken_result)
+    monkeypatch.setattr(core, "estimate_exceedance", _broken_result)
     response = client.post("/v1/exceedance", json=small_request(thresholds=[1.0]))
     assert response.status_code == 200
     body = _strict_json(response.text)
@@ -206,7 +206,7 @@ def test_engine_overrunning_the_wall_limit_gets_503(make_client, small_request, 
     def slow(*_: Any, **__: Any) -> None:
         time.sleep(1.0)
 
-    monkeypatch.setattr(core, "exceedance", slow)
+    monkeypatch.setattr(core, "estimate_exceedance", slow)
     client = make_client(time_limit_s=0.2, time_limit_grace_s=0.0)
     response = client.post("/v1/exceedance", json=small_request())
     assert response.status_code == 503

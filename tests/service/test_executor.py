@@ -41,13 +41,14 @@ def process_pool():
 def test_process_and_thread_pools_give_the_same_figures(process_pool):
     args = (_portfolio(), [30.0, 60.0])
     kwargs = {"precision": core.Precision(samples=2000), "seed": 8, "method": "crude"}
+    estimate = core.estimate_exceedance
     threads = ComputePool(kind="thread", workers=1, metrics=Metrics())
     threads.start()
     try:
-        in_thread = asyncio.run(threads.run(core.exceedance, *args, wall_limit_s=30, **kwargs))
+        in_thread = asyncio.run(threads.run(estimate, *args, wall_limit_s=30, **kwargs))
     finally:
         threads.shutdown()
-    in_process = asyncio.run(process_pool.run(core.exceedance, *args, wall_limit_s=30, **kwargs))
+    in_process = asyncio.run(process_pool.run(estimate, *args, wall_limit_s=30, **kwargs))
     assert in_process.estimates == in_thread.estimates
     assert process_pool.in_flight == 0
 

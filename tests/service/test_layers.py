@@ -5,7 +5,6 @@ from __future__ import annotations
 
 import asyncio
 import json
-import math
 from typing import Any
 
 import numpy as np
@@ -169,7 +168,8 @@ def test_unlimited_layer_of_an_infinite_mean_claim_is_refused(client):
 def test_layer_beyond_every_sample_gets_one_sided_bounds(client):
     # One exponential(1) claim: P(X > 60) = e^-60 (closed form), which 4000 crude samples
     # cannot see. The answer says so: 0 with the same one-sided 95% bound as /v1/exceedance,
-    # -ln(0.05) / n (the rule of three), not "0 +- 0".
+    # the exact binomial (Clopper-Pearson 1934) bound for zero hits 1 - 0.05^(1/n), about
+    # 3/n (the rule of three), not "0 +- 0".
     body = _request(
         portfolio={"lines": [{"count": {"kind": "fixed", "n": 1},
                               "severity": {"family": "exponential", "mean": 1.0}}]},
@@ -177,7 +177,7 @@ def test_layer_beyond_every_sample_gets_one_sided_bounds(client):
     )
     result = client.post(ROUTE, json=body).json()
     limited, unlimited = result["layers"]
-    bound = -math.log(0.05) / 4000
+    bound = 1.0 - 0.05 ** (1.0 / 4000)
     assert limited["probability_attach"] == 0.0
     assert limited["probability_attach_ci_high"] == pytest.approx(bound, rel=1e-12)
     assert limited["expected_loss"] == 0.0

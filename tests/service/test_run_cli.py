@@ -6,11 +6,12 @@ import io
 import json
 import os
 import pty
-import shutil
 import subprocess
+import sys
 from typing import Any
 
 import pytest
+from server_processes import ROOT, environment
 
 from service.cli import ProgressReport, main
 from service.settings import DEFAULT_EXAMPLES_DIR
@@ -127,15 +128,14 @@ def test_on_a_terminal_progress_is_one_bar_redrawn_in_place():
 
 
 def test_the_command_draws_a_bar_when_stderr_is_a_terminal(tmp_path):
-    command = shutil.which("tailgauge")
-    assert command, "the tailgauge console script is not installed (pip install -e .)"
     batch = json.loads(EXAMPLE.read_text(encoding="utf-8"))
     batch["items"] = batch["items"][:2]
     path = tmp_path / "batch.json"
     path.write_text(json.dumps(batch), encoding="utf-8")
     parent, child = pty.openpty()
-    env = {**os.environ, "TAILGAUGE_EXECUTOR": "thread", "TAILGAUGE_WORKERS": "2"}
-    process = subprocess.Popen([command, "run", str(path), "--out", str(tmp_path / "o.json")],
+    env = environment({"TAILGAUGE_EXECUTOR": "thread", "TAILGAUGE_WORKERS": "2"})
+    process = subprocess.Popen([sys.executable, "-m", "service.cli", "run", str(path),
+                                "--out", str(tmp_path / "o.json")], cwd=ROOT,
                                stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL,
                                stderr=child, env=env)
     os.close(child)

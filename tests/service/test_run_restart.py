@@ -1,13 +1,13 @@
-"""Runs survive the server: kill -9 mid-run, restart on the same data dir, nothing lost or redone.
+"""Runs survive the server: kill -9 mid-run, restart on the same data dir, nothing lost or redone;
+a full disk mid-run, then space back: the run completes, nothing stuck.
 
-Also the store's own recovery rules, on a SQLite file.
+The servers are real (``python -m uvicorn service.app:app`` on loopback, process pool). Also
+the store's own recovery rules, on a SQLite file.
 """
 
 from __future__ import annotations
 
-import os
-import shutil
-import socket
+import json
 import sqlite3
 import subprocess
 import time
@@ -16,6 +16,7 @@ from typing import Any
 
 import httpx
 import pytest
+from server_processes import kill, start_server, stop
 
 from service.store import STORE_FILE, NewItem, SqliteRunStore
 
@@ -23,35 +24,8 @@ ITEMS = 8
 SLOW_SAMPLES = 600_000  # about 0.25 s per item on one core: a kill lands mid-run
 
 
-def _free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as sock:
-        sock.bind(("127.0.0.1", 0))
-        return int(sock.getsockname()[1])
-
-
-def _serve(data_dir: Path, log: Path) -> tuple[subprocess.Popen[bytes], str]:
-    command = shutil.which("tailgauge")
-    assert command, "the tailgauge console script is not installed (pip install -e .)"
-    port = _free_port()
-    env = {**os.environ, "TAILGAUGE_EXECUTOR": "process", "TAILGAUGE_RUN_WORKERS": "2"}
-    with log.open("ab") as out:
-        process = subprocess.Popen(
-            [command, "serve", "--host", "127.0.0.1", "--port", str(port),
-             "--data-dir", str(data_dir), "--workers", "2"],
-            stdout=out, stderr=subprocess.STDOUT, env=env,
-        )
-    base = f"http://127.0.0.1:{port}"
-    deadline = time.monotonic() + 30
-    while time.monotonic() < deadline:
-        if process.poll() is not None:
-            raise AssertionError(f"server exited early:\n{log.read_text()}")
-        try:
-            if httpx.get(f"{base}/v1/health", timeout=1).status_code == 200:
-                return process, base
-        except httpx.TransportError:
-            time.sleep(0.1)
-    process.kill()
-    raise AssertionError(f"server did not come up:\n{log.read_text()}")
+def _serve(data_dir: Path, log: Path, **env: str) -> tuple[subprocess.Popen[bytes], str]:
+    return start_server(data_dir, log, env=env)
 
 
 def _request(seed: int) -> dict[str, Any]:
@@ -90,12 +64,10 @@ def test_a_run_survives_kill_9_and_finishes_after_a_restart(tmp_path):
                 break
             assert time.monotonic() < deadline, before
             time.sleep(0.05)
-        process.kill()  # SIGKILL: no shutdown code runs
-        process.wait()
+        kill(process)  # SIGKILL: no shutdown code runs
     finally:
         if process.poll() is None:
-            process.kill()
-            process.wait()
+            kill(process)
     assert before["progress"]["done"] < ITEMS, "the run ended before the kill; slow it down"
     at_kill = _items_in_file(data_dir)
     interrupted = {i for i, (status, _) in at_kill.items() if status == "running"}
@@ -114,16 +86,15 @@ def test_a_run_survives_kill_9_and_finishes_after_a_restart(tmp_path):
         synchronous = httpx.post(f"{base}/v1/exceedance", json=_request(
             interrupted_item["seed"]), timeout=30).json()
     finally:
-        process.terminate()
-        process.wait(timeout=15)
+        stop(process)
 
     ids = [r["id"] for r in after["results"]]
     assert ids == [item["id"] for item in batch["items"]]  # every item exactly once, in order
     assert after["progress"] == {"done": ITEMS, "total": ITEMS, "failed": 0, "running": 0,
                                  "queued": 0, "cancelled": 0}
     by_id = {r["id"]: r for r in after["results"]}
-    for kept in before["results"]:  # finished before the kill: unchanged, timing included
-        assert by_id[kept["id"]] == kept
+    for kept in before["results"]:  # finished before the kill: byte for byte, timing included
+        assert json.dumps(by_id[kept["id"]]) == json.dumps(kept)
     for item_id in finished_at_kill:
         assert by_id[item_id]["attempts"] == 1
     for item_id in interrupted:
@@ -136,6 +107,70 @@ def test_a_run_survives_kill_9_and_finishes_after_a_restart(tmp_path):
         k: v for k, v in synchronous.items() if k not in strip}
     print(f"\nkill -9 with {len(finished_at_kill)} done and {len(interrupted)} running; "
           f"{int(recomputed)} computed after the restart")
+
+
+def _wide_request(seed: int) -> dict[str, Any]:
+    # 40 thresholds: each result needs fresh database pages, so a full store refuses it.
+    return {**_request(seed), "thresholds": [float(t) for t in range(200, 600, 10)],
+            "precision": {"samples": SLOW_SAMPLES // 2}}
+
+
+def _until(what: str, condition: Any, timeout: float = 60.0) -> Any:
+    deadline = time.monotonic() + timeout
+    while not (value := condition()):
+        assert time.monotonic() < deadline, f"timed out waiting for {what}"
+        time.sleep(0.1)
+    return value
+
+
+def test_a_full_disk_mid_run_then_space_back_completes_the_run_with_nothing_stuck(tmp_path):
+    data_dir, log, drill = tmp_path / "data", tmp_path / "server.log", tmp_path / "drill"
+    items = 12
+    batch = {"name": "disk-full drill", "items": [
+        {"id": f"line-{i:02d}", "kind": "exceedance", "request": _wide_request(300 + i)}
+        for i in range(items)]}
+    process, base = _serve(data_dir, log, TAILGAUGE_STORE_DRILL_FILE=str(drill))
+
+    def run() -> dict[str, Any]:
+        body: dict[str, Any] = httpx.get(f"{base}/v1/runs/{run_id}", timeout=10).json()
+        return body
+
+    def health() -> dict[str, Any]:
+        body: dict[str, Any] = httpx.get(f"{base}/v1/health", timeout=5).json()
+        return body
+
+    try:
+        run_id = httpx.post(f"{base}/v1/runs", json=batch, timeout=10).json()["run_id"]
+        _until("two items done", lambda: run()["progress"]["done"] >= 2)
+        drill.write_text("full")  # the disk fills up mid-run
+        _until("degraded health", lambda: health()["status"] == "degraded")
+        assert health()["store"]["status"] == "store_full"
+        refused = httpx.post(f"{base}/v1/runs", json=batch, timeout=10)
+        assert refused.status_code == 503 and refused.json()["detail"][0]["type"] == \
+            "store_full", refused.text
+        stalled = run()["progress"]
+        time.sleep(2.0)
+        assert run()["progress"] == stalled and stalled["done"] < items, stalled
+        kept = {r["id"]: json.dumps(r) for r in run()["results"]}
+
+        drill.unlink()  # space is back
+        final = _until("run done", lambda: (body := run())["status"] == "done" and body)
+        assert health()["status"] == "ok"
+        listed = httpx.get(f"{base}/v1/runs", timeout=10).json()["runs"]
+    finally:
+        stop(process)
+    # Every item once, in order, computed once; nothing running or queued; no run stuck.
+    assert [r["id"] for r in final["results"]] == [item["id"] for item in batch["items"]]
+    assert final["progress"] == {"done": items, "total": items, "failed": 0, "running": 0,
+                                 "queued": 0, "cancelled": 0}
+    assert {r["attempts"] for r in final["results"]} == {1}
+    assert [r["status"] for r in listed] == ["done"]  # the refused batch stored nothing
+    by_id = {r["id"]: r for r in final["results"]}
+    for item_id, text in kept.items():  # finished before the disk filled: byte for byte
+        assert json.dumps(by_id[item_id]) == text
+    assert not [i for i, (status, _) in _items_in_file(data_dir).items() if status != "done"]
+    print(f"\ndisk full at {stalled['done']}/{items} done ({stalled['running']} held "
+          f"running); after space came back {items}/{items} done, attempts all 1")
 
 
 # --- the store's recovery rules ---------------------------------------------------------------

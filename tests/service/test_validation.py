@@ -8,7 +8,8 @@ from typing import Any
 from fastapi.testclient import TestClient
 
 SEVERITY_TAGS = (
-    "'lognormal', 'pareto', 'weibull', 'gamma', 'exponential', 'normal', 'generalized_pareto'"
+    "'lognormal', 'pareto', 'weibull', 'gamma', 'exponential', 'normal', 'generalized_pareto', "
+    "'spliced'"
 )
 LINE0 = ["body", "portfolio", "lines", 0]
 

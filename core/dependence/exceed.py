@@ -1,0 +1,188 @@
+"""P(S > x) for a dependent portfolio: the exceedance entry point's dependent branch.
+
+Each threshold is its own sample set for the shifted methods (the shift is aimed at it) and
+all thresholds share one for the others. With lattice quantiles the interval spans the lower
+loss's lower 95% limit to the upper loss's upper 95% limit: the grid error widens the interval
+and is never folded into the standard error. `auto` pilots every candidate (work-normalised
+variance, then the reliability checks) as the independent engine does.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+
+import numpy as np
+import numpy.typing as npt
+
+from core.dependence import engine
+from core.dependence.amounts import lognormal_amounts
+from core.diagnostics import ContributionStats
+from core.errors import LimitError, MethodError, TailgaugeError
+from core.estimators.base import Group
+from core.exceedance_records import warnings_for
+from core.intervals import Z95
+from core.portfolio import Portfolio
+from core.precision import Precision, run_group
+from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
+from core.sampling import block_size
+from core.streams import Purpose, Stream
+
+FloatArray = npt.NDArray[np.float64]
+PILOT_SAMPLES = 4096
+SHIFTED = ("conditional_is", "mean_shift")
+
+
+def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int) -> list[Group]:
+    parts = [[i] for i in range(x.size)] if name in SHIFTED else [list(range(x.size))]
+    tail = 1e-12
+    # Only exceedance columns are used here: lattices need to reach just past the largest
+    # threshold (a line beyond it exceeds every threshold in both bounds).
+    top = 1.05 * float(np.max(x)) if float(np.min(x)) > 0 else None
+    out = []
+    for idx in parts:
+        pts = x[idx]
+        fn = engine.values(name, portfolio, pts, list(pts), np.zeros(0, np.int64), seed,
+                           smallest_tail=tail, top=top)
+        g = pts.size
+
+        def block(n: int, rng: np.random.Generator, fn: engine.Values = fn,
+                  g: int = g) -> FloatArray:
+            v = fn(n, rng)
+            return np.hstack([v[:, :g], v[:, 2 * g:3 * g], v[:, 3 * g:4 * g]])
+
+        out.append(Group(tuple(idx), block, _work(name, portfolio, g), name))
+    return out
+
+
+def _work(name: str, portfolio: Portfolio, points: int) -> float:
+    m = len(portfolio.lines)
+    if name in ("crude", "mean_shift"):
+        return float(m + 4 * points)
+    return float(12 * m * points)
+
+
+def _mid_error(g: int) -> object:
+    def error_of(stats: ContributionStats) -> float:
+        mean = np.asarray(stats.mean(), dtype=float)[:g]
+        se = np.asarray(stats.std_error(), dtype=float)[:g]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            re = np.where(mean > 0, se / mean, np.inf)
+        return float(np.max(re))
+
+    return error_of
+
+
+def _estimates(x: FloatArray, group: Group, stats: ContributionStats, samples: int,
+               name: str) -> list[tuple[int, ExceedanceEstimate]]:
+    g = len(group.indices)
+    mean = np.asarray(stats.mean(), dtype=float)
+    se = np.asarray(stats.std_error(), dtype=float)
+    hits = np.asarray(stats.hits)
+    diags = stats.diagnose()
+    out = []
+    for col, i in enumerate(group.indices):
+        p, s = float(mean[col]), float(se[col])
+        lo, hi = float(mean[g + col]), float(mean[2 * g + col])
+        se_lo, se_hi = float(se[g + col]), float(se[2 * g + col])
+        d: Diagnostics = diags[col]
+        if int(hits[col]) == 0 or p <= 0:
+            bound = -math.log(0.05) / samples
+            out.append((i, ExceedanceEstimate(
+                threshold=float(x[i]), value=0.0, std_error=None, relative_error=None,
+                ci_low=0.0, ci_high=min(1.0, max(bound, hi + Z95 * se_hi)), samples=samples,
+                hits=0, diagnostics=d, method=name)))
+            continue
+        low = max(0.0, min(p - Z95 * s, lo - Z95 * se_lo))
+        high = min(1.0, max(p + Z95 * s, hi + Z95 * se_hi))
+        out.append((i, ExceedanceEstimate(
+            threshold=float(x[i]), value=p, std_error=s, relative_error=s / p,
+            ci_low=min(low, p), ci_high=max(high, p), samples=samples,
+            hits=int(hits[col]), diagnostics=d, method=name)))
+    return out
+
+
+def _pilot_cost(name: str, portfolio: Portfolio, x: FloatArray, seed: int
+                ) -> tuple[float, bool]:
+    cost, reliable = 0.0, True
+    for k, group in enumerate(_groups(name, portfolio, x, seed)):
+        rng = Stream(Purpose.PILOT, f"dependent:{name}", (k,)).rng(seed, 0)
+        stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
+        g = len(group.indices)
+        mean = np.asarray(stats.mean(), dtype=float)[:g]
+        se = np.asarray(stats.std_error(), dtype=float)[:g]
+        rv = np.where(mean > 0, (se / np.where(mean > 0, mean, 1.0)) ** 2 * PILOT_SAMPLES,
+                      math.inf)
+        cost += float(np.max(rv)) * group.work
+        reliable = reliable and all(d.reliable for d in stats.diagnose()[:g])
+    return cost, reliable
+
+
+def choose(portfolio: Portfolio, x: FloatArray, seed: int, *, measures: bool = False
+           ) -> tuple[list[str], str]:
+    trials: list[tuple[bool, float, str]] = []
+    refused: list[TailgaugeError] = []
+    for name in engine.candidates(portfolio, measures=measures):
+        try:
+            cost, ok = _pilot_cost(name, portfolio, x, seed)
+        except (MethodError, LimitError) as exc:
+            refused.append(exc)
+            continue
+        trials.append((not ok, cost, name))
+    if not trials:
+        raise refused[0]
+    trials.sort()
+    best = trials[0]
+    others = ", ".join(f"{n} {c / best[1]:.3g}x" if math.isfinite(c) and best[1] > 0
+                       else f"{n} (no hits in pilot)" for _, c, n in trials[1:])
+    kind = ("correlated lognormal amounts" if lognormal_amounts(portfolio) is not None
+            else "copula-coupled lines")
+    reason = (f"dependent portfolio ({kind}): pilot of {PILOT_SAMPLES} samples per candidate; "
+              f"{best[2]} has the lowest work-normalised variance"
+              + (f" (others relative: {others})" if others else ""))
+    return [t[2] for t in trials], reason
+
+
+def dependent_exceedance(portfolio: Portfolio, x: FloatArray, method: str,
+                         precision: Precision, seed: int, start: float) -> ExceedanceResult:
+    if method in ("recursion", "tilted"):
+        raise MethodError("method", f"{method} does not apply to a dependent portfolio "
+                                    "(portfolio.dependence): no rigorous bounds or tilt of a "
+                                    "copula-coupled sum are implemented; use auto, "
+                                    + ", ".join(engine.DEPENDENT_METHODS))
+    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    if method == "auto":
+        names, reason = choose(portfolio, x, seed)
+    else:
+        names, reason = [method], f"{method} requested"
+    found: dict[int, ExceedanceEstimate] = {}
+    stops: list[str] = []
+    for rank, name in enumerate(names[:2] if method == "auto" else names):
+        todo = [i for i in range(x.size) if i not in found or (
+            not found[i].diagnostics.reliable and found[i].hits > 0)]
+        if not todo:
+            break
+        for k, group in enumerate(_groups(name, portfolio, x, seed)):
+            if not set(group.indices) & set(todo):
+                continue
+            run = run_group(group, block_size(portfolio), precision, seed,
+                            Stream(Purpose.SAMPLES, f"dependent:{name}", (k,)), deadline,
+                            error_of=_mid_error(len(group.indices)))  # type: ignore[arg-type]
+            stops.append(run.stopped_by)
+            for i, est in _estimates(x, group, run.stats, run.samples, name):
+                if i not in found or (rank > 0 and est.diagnostics.reliable):
+                    if rank > 0:
+                        reason += f"; threshold {x[i]:g} re-estimated by {name} after a flag"
+                    found[i] = est
+    estimates = [found[i] for i in range(x.size)]
+    order = ("time_limit", "max_samples", "samples", "relative_error")
+    stopped = next(s for s in order if s in stops)
+    warnings = warnings_for(estimates)
+    amounts = lognormal_amounts(portfolio)
+    mean = amounts.mean if amounts is not None else portfolio.mean
+    sd = math.sqrt(amounts.variance) if amounts is not None else math.nan
+    used = sorted({e.method for e in estimates})
+    return ExceedanceResult(
+        method=used[0] if len(used) == 1 else "+".join(used), method_reason=reason,
+        seed=seed, elapsed_s=time.monotonic() - start, stopped_by=stopped, mean=mean,
+        std_dev=sd, estimates=estimates, warnings=warnings)

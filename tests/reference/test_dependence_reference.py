@@ -1,0 +1,195 @@
+"""Dependent portfolios against references the project did not make (named beside each check).
+
+Tolerances: |estimate - reference| <= 4 standard errors (plus the reference's own bound width
+where it has one)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import integrate, optimize, signal, stats
+
+from core import Fixed, Gamma, Line, Lognormal, Poisson, Portfolio, Precision
+from core import estimate_exceedance as exceedance
+from core.dependence.copula import Copula
+from core.errors import MethodError
+from core.measures import tail_estimates
+
+
+def _amounts(mu: list[float], sigma: list[float], r: np.ndarray) -> Portfolio:
+    lines = [Line(count=Fixed(n=1), severity=Lognormal(mu=m, sigma=s), label=f"a{i}")
+             for i, (m, s) in enumerate(zip(mu, sigma, strict=True))]
+    return Portfolio(lines=lines, dependence=Copula(kind="gaussian", correlation=r))
+
+
+def _within(est: object, ref: float, slack: float = 0.0) -> None:
+    e = est  # an ExceedanceEstimate
+    assert e.std_error is not None  # type: ignore[attr-defined]
+    assert abs(e.value - ref) <= 4 * e.std_error + slack, (e.value, ref, e.std_error)  # type: ignore[attr-defined]
+
+
+def _two_lognormals_quad(rho: float, s1: float, s2: float, x: float) -> float:
+    # Condition on Z1: Z2 | Z1 ~ N(rho Z1, 1 - rho^2); P(X2 > x - X1 | Z1) is a normal tail.
+    sd = math.sqrt(1 - rho * rho)
+
+    def f(z1: float) -> float:
+        rest = x - math.exp(s1 * z1)
+        if rest <= 0:
+            return float(stats.norm.pdf(z1))
+        return float(stats.norm.pdf(z1) * stats.norm.sf((math.log(rest) / s2 - rho * z1) / sd))
+
+    z_top = math.log(x) / s1
+    # split at the point where X1 alone reaches x (the integrand has a kink there)
+    a = integrate.quad(f, -12, z_top, limit=200, epsabs=0, epsrel=1e-10)[0]
+    b = float(stats.norm.sf(z_top))
+    return a + b
+
+
+@pytest.mark.parametrize("method", ["conditional_is", "conditional", "radial", "mean_shift"])
+def test_two_correlated_lognormals_match_quadrature(method: str) -> None:
+    # Reference: one-dimensional quadrature after conditioning on one normal (scipy.integrate).
+    r = np.array([[1.0, 0.7], [0.7, 1.0]])
+    pf = _amounts([0.0, 0.0], [1.0, 0.6], r)
+    x = 120.0
+    ref = _two_lognormals_quad(0.7, 1.0, 0.6, x)
+    res = exceedance(pf, [x], method=method, precision=Precision(samples=20_000), seed=3)
+    _within(res.estimates[0], ref)
+
+
+def test_comonotone_lognormal_sum_matches_one_dimensional_root() -> None:
+    # All correlations 1: S = sum exp(mu_i + sigma_i Z) with one Z, so P(S > x) = Phi(-z*)
+    # with z* the root of that increasing function (scipy.optimize.brentq).
+    mu, sigma = [0.0, 0.5, -0.3], [1.0, 0.6, 1.3]
+    pf = _amounts(mu, sigma, np.ones((3, 3)))
+    x = 400.0
+    z = optimize.brentq(lambda t: sum(math.exp(m + s * t) for m, s in zip(mu, sigma, strict=True))
+                        - x, -10, 20)
+    res = exceedance(pf, [x], method="mean_shift", precision=Precision(samples=20_000), seed=4)
+    _within(res.estimates[0], float(stats.norm.sf(z)))
+    res = exceedance(pf, [x], precision=Precision(samples=20_000), seed=4)
+    _within(res.estimates[0], float(stats.norm.sf(z)))
+
+
+def test_comonotone_var_is_the_sum_of_line_vars() -> None:
+    # VaR is additive for comonotone risks (Dhaene, Denuit, Goovaerts, Kaas and Vyncke 2002):
+    # VaR_q(S) = sum exp(mu_i + sigma_i Phi^{-1}(q)).
+    mu, sigma = [0.0, 0.5], [1.0, 0.6]
+    pf = _amounts(mu, sigma, np.ones((2, 2)))
+    q = 0.995
+    ref = sum(math.exp(m + s * stats.norm.ppf(q)) for m, s in zip(mu, sigma, strict=True))
+    res = tail_estimates(pf, levels=[q], method="mean_shift", precision=Precision(samples=20_000),
+                         seed=5)
+    var = res.measures[0].var
+    # the 95% interval is about +-1.96 SE: allow twice its half-width (about 4 SE)
+    half = 0.5 * (var.ci_high - var.ci_low)
+    assert abs(var.value - ref) <= 2 * half + 1e-9 * ref, (var, ref)
+
+
+def _iid_tail(a: float, s: float, n: int, x: float, rounding: str, cells: int = 8192) -> float:
+    """P(sum of n iid lognormal(a, s) > x) on a lattice, claims rounded down or up: a lower or
+    upper bound (numerical convolution with the mass beyond x dropped at each step)."""
+    h = x / cells
+    edges = np.arange(cells + 1) * h
+    cdf = stats.lognorm.cdf(edges, s, scale=math.exp(a))
+    mass = np.diff(cdf)  # mass of ((k-1)h, kh], k = 1..cells
+    pmf = np.zeros(cells + 1)
+    if rounding == "up":
+        pmf[1:] = mass
+    else:
+        pmf[:-1] = mass
+    out = np.zeros(cells + 1)
+    out[0] = 1.0
+    for _ in range(n):
+        out = np.maximum(signal.fftconvolve(out, pmf)[: cells + 1], 0.0)
+    return float(max(1.0 - out.sum(), 0.0))
+
+
+def test_equicorrelated_lognormals_match_common_factor_convolution() -> None:
+    # Reference: condition on the common factor V (Y_i = sqrt(rho) V + sqrt(1 - rho) e_i),
+    # then the iid sum by numerical convolution with rounding down / up (an independent
+    # deterministic method), integrated over V by the trapezoid rule.
+    d, rho, x = 10, 0.5, 1000.0
+    r = np.full((d, d), rho)
+    np.fill_diagonal(r, 1.0)
+    pf = _amounts([0.0] * d, [1.0] * d, r)
+    v = np.linspace(-6.0, 7.0, 131)
+    bounds = []
+    for rounding in ("down", "up"):
+        tail = np.array([_iid_tail(math.sqrt(rho) * t, math.sqrt(1 - rho), d, x, rounding)
+                         for t in v])
+        bounds.append(float(np.trapezoid(stats.norm.pdf(v) * tail, v)))
+    lo, hi = bounds
+    res = exceedance(pf, [x], precision=Precision(samples=20_000), seed=6)
+    e = res.estimates[0]
+    assert e.std_error is not None
+    assert lo - 4 * e.std_error <= e.value <= hi + 4 * e.std_error, (e.value, lo, hi)
+
+
+def _two_lines() -> list[Line]:
+    return [Line(count=Poisson(mean=5.0), severity=Lognormal(mu=0.0, sigma=1.5), label="storm"),
+            Line(count=Poisson(mean=20.0), severity=Gamma(shape=2.0, scale=1.0), label="motor")]
+
+
+def test_identity_copula_reproduces_the_independent_engine() -> None:
+    # The independent engine (tested against closed forms elsewhere) is the reference here.
+    lines = _two_lines()
+    x = [150.0]
+    ind = exceedance(Portfolio(lines=lines), x, precision=Precision(samples=20_000), seed=7)
+    dep = exceedance(Portfolio(lines=lines, dependence=Copula(kind="gaussian",
+                                                               correlation=np.eye(2))),
+                     x, precision=Precision(samples=20_000), seed=7)
+    a, b = ind.estimates[0], dep.estimates[0]
+    assert a.std_error is not None and b.std_error is not None
+    # the grid bounds of the dependent estimate widen the allowance
+    grid = 0.5 * max(b.ci_high - b.ci_low - 2 * 1.96 * b.std_error, 0.0)
+    assert abs(a.value - b.value) <= 4 * math.hypot(a.std_error, b.std_error) + grid
+
+
+def test_euler_contributions_sum_to_tvar() -> None:
+    # Euler allocation is full allocation: sum_i E[S_i | S > VaR] = TVaR (common practice).
+    pf = Portfolio(lines=_two_lines(), dependence=Copula(
+        kind="gaussian", correlation=np.array([[1.0, 0.6], [0.6, 1.0]])))
+    res = tail_estimates(pf, levels=[0.99], precision=Precision(samples=10_000), seed=8)
+    m = res.measures[0]
+    total = sum(c.tvar_contribution for c in m.contributions)
+    assert abs(total - m.tvar.value) <= 1e-12 * m.tvar.value
+    assert [c.label for c in m.contributions] == ["storm", "motor"]
+    assert all(c.ci_low <= c.tvar_contribution <= c.ci_high for c in m.contributions)
+
+
+def test_recursion_refuses_a_dependent_portfolio() -> None:
+    pf = _amounts([0.0, 0.0], [1.0, 1.0], np.eye(2))
+    with pytest.raises(MethodError) as info:
+        exceedance(pf, [10.0], method="recursion")
+    assert info.value.parameter == "method"
+    with pytest.raises(MethodError):
+        tail_estimates(pf, levels=[0.99], method="recursion")
+
+
+def test_student_t_copula_two_lognormals_match_quadrature() -> None:
+    # Reference: for a bivariate t (df nu, correlation rho), T2 | T1 = t is rho t plus
+    # sqrt((nu + t^2)(1 - rho^2) / (nu + 1)) times a t with nu + 1 degrees of freedom (the
+    # conditional law of the multivariate t); one-dimensional quadrature over T1 (scipy).
+    nu, rho, x = 4.0, 0.6, 200.0
+    law1, law2 = stats.lognorm(1.0), stats.lognorm(0.8)
+
+    def f(t: float) -> float:
+        rest = x - float(law1.ppf(stats.t.cdf(t, nu)))
+        if rest <= 0:
+            return float(stats.t.pdf(t, nu))
+        c = float(stats.t.isf(law2.sf(rest), nu))
+        scale = math.sqrt((nu + t * t) * (1 - rho * rho) / (nu + 1))
+        return float(stats.t.pdf(t, nu) * stats.t.sf((c - rho * t) / scale, nu + 1))
+
+    t_top = float(stats.t.isf(law1.sf(x), nu))
+    ref = integrate.quad(f, -60, t_top, limit=400, epsrel=1e-10)[0] + float(
+        stats.t.sf(t_top, nu))
+    lines = [Line(count=Fixed(n=1), severity=Lognormal(mu=0.0, sigma=1.0)),
+             Line(count=Fixed(n=1), severity=Lognormal(mu=0.0, sigma=0.8))]
+    pf = Portfolio(lines=lines, dependence=Copula(
+        kind="student_t", correlation=np.array([[1.0, rho], [rho, 1.0]]), df=nu))
+    res = exceedance(pf, [x], precision=Precision(samples=20_000), seed=9)
+    assert res.method == "mean_shift"
+    _within(res.estimates[0], ref)

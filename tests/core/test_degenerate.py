@@ -18,7 +18,7 @@ def _nothing() -> core.Portfolio:
 def test_exceedance_of_a_surely_zero_loss_is_exact_for_every_method(method: str) -> None:
     # S = 0 with probability one (a fact of the model, no reference needed): P(S > x) is the
     # indicator of x < 0, with no sampling error at all.
-    result = core.exceedance(_nothing(), [-1.0, 0.0, 5.0], method=method, seed=3)
+    result = core.estimate_exceedance(_nothing(), [-1.0, 0.0, 5.0], method=method, seed=3)
     assert (result.method, result.stopped_by) == ("exact", "exact")
     assert [(e.value, e.ci_low, e.ci_high, e.samples) for e in result.estimates] == [
         (1.0, 1.0, 1.0, 0), (0.0, 0.0, 0.0, 0), (0.0, 0.0, 0.0, 0)]

@@ -32,7 +32,7 @@ def test_ruin_with_a_tiny_retention_is_estimated():
     # every claim capped at 1e-10; it was an IndexError in the tilt of the capped lognormal.
     process = core.SurplusProcess(claim_rate=1.0, severity=core.Lognormal(mu=0.0, sigma=1.0),
                                   loading=0.2, retention=1e-10)
-    result = core.ruin(process, [0.0], precision=core.Precision(samples=1000), seed=1)
+    result = core.ruin_probability(process, [0.0], precision=core.Precision(samples=1000), seed=1)
     e = result.estimates[0]
     assert e.ci_low <= 1.0 / 1.2 <= e.ci_high
 
@@ -57,7 +57,7 @@ def test_the_capital_search_stops_at_the_time_limit_and_says_so():
     process = core.SurplusProcess(claim_rate=400.0, severity=core.Gamma(shape=2.5, scale=1600.0),
                                   loading=0.15, retention=12000.0)
     began = time.monotonic()
-    result = core.ruin(process, [50000.0], target_probability=1e-300,
+    result = core.ruin_probability(process, [50000.0], target_probability=1e-300,
                        precision=core.Precision(time_limit_s=1.0), seed=1)
     assert time.monotonic() - began < 20.0
     assert result.stopped_by == "time_limit"

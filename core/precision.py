@@ -10,6 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from core import spans
 from core.diagnostics import ContributionStats
 from core.errors import ParameterError
 from core.estimators.base import Group
@@ -87,12 +88,17 @@ def run_group(
     done, next_check, index = 0, precision.minimum, 0
     cap = precision.cap
     target = precision.relative_error
+    runner = spans.current()
     while True:
-        for b, m in blocks(next_check - done, block, start=index):
-            values = group.block_values(m, stream.rng(seed, b))
-            parts.append(ContributionStats.from_samples(values, top_k=TOP_K, chunk=b))
-            done, index = done + m, b + 1
-            if deadline is not None and time.monotonic() > deadline:
+        # The round's blocks are fixed before anything runs, so whoever runs which span (the
+        # current runner, core.spans), the merged figures are the same.
+        plan = list(blocks(next_check - done, block, start=index))
+        cut = spans.cut(group, stream, seed, plan, top_k=TOP_K, width=runner.width,
+                        deadline=spans.wall_deadline(deadline))
+        for result in runner(cut):
+            parts.append(result.stats)
+            done, index = done + result.samples, index + result.blocks
+            if not result.complete or (deadline is not None and time.monotonic() > deadline):
                 return GroupRun(ContributionStats.combine(parts), done, "time_limit")
         stats = ContributionStats.combine(parts)
         parts = [stats]

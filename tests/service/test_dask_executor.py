@@ -20,6 +20,7 @@ from service.executor import ComputePool, Cost
 from service.metrics import Metrics
 from tests.service.test_block_parallel import CALLS, SAMPLES, _figures, _split_run
 
+
 @pytest.fixture(scope="module")
 def cluster():
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,

@@ -31,9 +31,10 @@ from core.diagnostics import ContributionStats
 from core.estimators.base import Group
 from core.streams import Stream
 
-# Blocks per span at most: a span's run time stays short (a block holds about a million
-# claims at most, core.sampling), so that small requests sharing the workers wait little.
-MAX_SPAN_BLOCKS = 16
+# Work per span at most (Group.work units, about claims drawn; a few tenths of a second):
+# small requests sharing the workers wait at most about this long for a free one.
+MAX_SPAN_WORK = 2.0 * 2**20
+MAX_SPAN_BLOCKS = 64
 # Spans per runner slot and round at least, so that uneven spans still keep every slot busy.
 SPANS_PER_SLOT = 2
 
@@ -140,9 +141,9 @@ def cut(
     """
     if not plan:
         return []
-    per_span = min(MAX_SPAN_BLOCKS, max(1, math.ceil(len(plan) / (SPANS_PER_SLOT * width))))
-    if width <= 1:
-        per_span = MAX_SPAN_BLOCKS
+    block_work = max(m for _, m in plan) * max(group.work, 1.0)
+    longest = max(1, min(MAX_SPAN_BLOCKS, math.floor(MAX_SPAN_WORK / block_work)))
+    per_span = min(longest, max(1, math.ceil(len(plan) / (SPANS_PER_SLOT * width))))
     spans = []
     for start in range(0, len(plan), per_span):
         chunk = plan[start:start + per_span]

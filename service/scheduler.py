@@ -11,10 +11,11 @@ next one by lane:
   order (not round-robin) lets the first of several large requests finish at full speed and
   makes the wait of the next one predictable.
 
-Admission: a job's cost is estimated in work units (samples times the work proxy of one sample,
-core.estimators.base.work_per_sample) and seconds per unit learned from the tasks that ended.
-A job whose work, added to the work ahead of it, cannot end within its wall limit is refused
-with a 503 and a Retry-After at once, instead of after waiting for the limit.
+Admission: a job's cost is estimated in work units (its sample budget times claims per sample)
+and seconds per unit learned from the tasks that ended; a job ahead never counts for more than
+the time it has left (the engine stops at its time limit and answers with what it drew). A job
+that could not start within its own wall limit behind the work ahead of it is refused with a
+503 and a Retry-After at once, instead of after waiting for the limit.
 Cancelled jobs (client gone, time limit) lose their queued tasks; running ones end on their own.
 """
 
@@ -36,7 +37,7 @@ Lane = Literal["small", "large"]
 
 # Seconds per work unit before any task has ended (measured on a 2-core machine of 2026: a
 # lognormal claim costs about 60 ns drawn and summed; a whole small call carries fixed costs).
-PRIOR_RATE: dict[Lane, float] = {"small": 2e-7, "large": 8e-8}
+PRIOR_RATE: dict[Lane, float] = {"small": 2e-7, "large": 1e-7}
 RATE_MEMORY = 0.2  # weight of the newest measurement in the moving average
 # A whole call's fixed cost (pilots, diagnostics, the trip to the worker), seconds.
 CALL_OVERHEAD_S = 0.02
@@ -98,13 +99,10 @@ class Scheduler:
 
     # --- jobs ---------------------------------------------------------------------------
     def admit(self, lane: Lane, work: float, wall_limit_s: float) -> Job:
-        """A new job, or Overloaded when it could not end within `wall_limit_s`."""
+        """A new job, or Overloaded when it could not start within `wall_limit_s`."""
         with self._lock:
-            ahead, own = self._ahead_s(lane), self._seconds(lane, work)
-            slots = max(1, self.backend.slots)
-            # A large job spreads over every slot; a small one runs on one.
-            wait = (ahead + own) / slots if lane == "large" else ahead / slots + own
-            if wait > wall_limit_s:
+            wait = self._ahead_s(lane) / max(1, self.backend.slots)
+            if wait >= wall_limit_s:
                 retry = min(MAX_RETRY_AFTER_S, max(1, math.ceil(wait - wall_limit_s)))
                 raise Overloaded(wait, retry)
             job = Job(lane, work, wall_limit_s)
@@ -143,9 +141,17 @@ class Scheduler:
         return work * self.rate[lane] + (CALL_OVERHEAD_S if lane == "small" else 0.0)
 
     def _ahead_s(self, lane: Lane) -> float:
-        # Small jobs only wait for small work (they go first); large ones for everything.
-        return sum(self._seconds(j.lane, j.remaining()) for j in self._jobs
-                   if lane == "large" or j.lane == "small")
+        """Slot-seconds of work ahead of a new job of `lane`: small jobs wait only for small
+        work (they go first), large ones for everything; a job counts for no more than the
+        slot time it has left before its wall limit."""
+        now, slots = time.monotonic(), max(1, self.backend.slots)
+        total = 0.0
+        for j in self._jobs:
+            if lane == "large" or j.lane == "small":
+                left = max(0.0, j.created + j.wall_limit_s - now)
+                total += min(self._seconds(j.lane, j.remaining()),
+                             left * (slots if j.lane == "large" else 1))
+        return total
 
     def _learn(self, lane: Lane, work: float, seconds: float) -> None:
         if work <= 0 or not math.isfinite(seconds):

@@ -21,6 +21,7 @@ ORPHAN_CHECK_S = 1.0
 class Backend(Protocol):
     slots: int
     remote: bool  # tasks cross a process boundary (spans travel packed)
+    depth: int  # tasks handed over per slot: more than one hides a slow round trip
 
     def start(self) -> None: ...
 
@@ -57,6 +58,7 @@ class LocalBackend:
         self.kind = kind
         self.slots = workers
         self.remote = kind == "process"
+        self.depth = 1
         self._executor: Executor | None = None
         self._lock = threading.Lock()
 
@@ -108,6 +110,9 @@ class DaskBackend:
     fixed by the request, the figures do not change."""
 
     remote = True
+    # A task's trip through the scheduler takes milliseconds: a second task per worker thread
+    # waits on the worker, so the thread never idles between spans.
+    depth = 2
     SLOTS_REFRESH_S = 5.0
 
     def __init__(self, address: str, *, connect_timeout_s: float = 10.0) -> None:

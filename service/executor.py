@@ -34,7 +34,9 @@ from service.scheduler import Job, Overloaded, Scheduler
 call_engine = tasks.call_engine
 
 GONE_POLL_S = 0.25  # how often a waiting request checks that its client is still there
-MAX_DRIVERS = 64  # server threads driving large requests at once (admission bounds them)
+# Server threads driving large requests at once. Large jobs are served in arrival order, so a
+# few keep every worker busy; more would only compete with the event loop for the GIL.
+MIN_DRIVERS, MAX_DRIVERS = 2, 8
 
 
 @dataclass(frozen=True)
@@ -113,7 +115,8 @@ class ComputePool:
 
     def start(self) -> None:
         self.backend.start()
-        self._drivers = ThreadPoolExecutor(max_workers=MAX_DRIVERS,
+        drivers = min(MAX_DRIVERS, max(MIN_DRIVERS, self.backend.slots))
+        self._drivers = ThreadPoolExecutor(max_workers=drivers,
                                            thread_name_prefix="tailgauge-driver")
 
     def shutdown(self) -> None:

@@ -170,7 +170,7 @@ class Scheduler:
         return None
 
     def _pump(self) -> None:
-        while self._running < max(1, self.backend.slots):
+        while self._running < max(1, self.backend.slots) * self.backend.depth:
             task = self._next()
             if task is None:
                 return

@@ -14,6 +14,7 @@ from functools import cached_property
 
 import numpy as np
 
+from core.big_claim import BigClaim
 from core.counts import ClaimCount
 from core.errors import LimitError
 from core.portfolio import Portfolio
@@ -69,6 +70,9 @@ class Draw:
     line_counts: list[np.ndarray]
     # Per line, the sum over its claims of score(y) when a score function was given.
     line_scores: list[np.ndarray | None] = field(default_factory=list)
+    # Per sample, the big-claim component's sum of r(y) over the lead line's claims
+    # (core.big_claim), when one was given.
+    big_ratio: np.ndarray | None = None
 
 
 def segment_sum(values: np.ndarray, counts: np.ndarray) -> np.ndarray:
@@ -127,6 +131,8 @@ def draw_block(
     size_biased: np.ndarray | None = None,
     stepwise: list[StepwiseTilt | None] | None = None,
     scores: list[Callable[[np.ndarray], np.ndarray] | None] | None = None,
+    big: BigClaim | None = None,
+    big_mask: np.ndarray | None = None,
 ) -> Draw:
     """Draw m samples of the portfolio.
 
@@ -134,6 +140,8 @@ def draw_block(
     N* - 1 (size-biased minus one), as the conditional estimators need; -1 for none.
     scores: optional per-line function of the claims, summed per sample into line_scores
     (a mixture estimator needs the adapted proposal's ratio at draws it did not make).
+    big: the big-claim component (core.big_claim): its ratio sum is kept for every sample, and
+    the samples in big_mask get one claim of its line replaced by a big one.
     """
     lines = portfolio.lines
     proposals = proposals or [LineProposal()] * len(lines)
@@ -158,6 +166,12 @@ def draw_block(
         claims, claim_llr = draw_claims(
             line.paid_severity, prop, int(counts.sum()), rng, stepwise[k]
         )
+        if big is not None and big.line == k:
+            if big_mask is not None:
+                # The component draws the rest from the model, so no claim carries a ratio.
+                assert claim_llr is None and prop.count_tilt == 0.0
+                big.replace(claims, counts, big_mask, rng)
+            out.big_ratio = big.ratio_sum(claims, counts)
         sums = segment_sum(claims, counts)
         if claim_llr is not None:
             llr = llr + segment_sum(claim_llr, counts)

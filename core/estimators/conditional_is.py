@@ -14,6 +14,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from core.big_claim import BigClaim
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.estimators.conditional import Conditioning
 from core.estimators.estimator import Estimator, RuinRegime
@@ -33,6 +34,9 @@ _CE_SAMPLES = 4096
 DEFENSIVE = 0.1
 # The capped tilt acts up to this multiple of the threshold's share per expected claim.
 _CAP_FACTOR = 3.0
+# Share of samples in which one other claim of the lead line is drawn big (core.big_claim):
+# the conditioned contribution peaks where a second claim is large, a region the tilt thins.
+BIG_SHARE = 0.1
 
 
 def capped_family(cond: Conditioning, x: float) -> TiltFamily:
@@ -46,7 +50,10 @@ def capped_family(cond: Conditioning, x: float) -> TiltFamily:
         sev = lines[k].paid_severity
         cap = max(_CAP_FACTOR * x / claims, float(sev.isf(1e-3)))
         grids[k] = TiltGrid(sev, min(cap, max(x, float(sev.isf(0.5)))))
-    return TiltFamily(cond.portfolio, grids, lead=cond.heavy[int(np.argmax(cond.pick))])
+    lead = cond.heavy[int(np.argmax(cond.pick))]
+    line = lines[lead]
+    big = BigClaim.for_threshold(lead, line.paid_severity, line.paid_count.mean, x)
+    return TiltFamily(cond.portfolio, grids, lead=lead, big=big, big_share=BIG_SHARE)
 
 
 def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream) -> tuple[TiltFamily, float]:

@@ -19,6 +19,7 @@ from core.counts import Binomial, ClaimCount, NegativeBinomial, Poisson
 from core.estimators.conditional import Conditioning
 from core.estimators.conditional_is import DEFENSIVE, capped_family
 from core.estimators.mixture import TiltFamily
+from core.integrated_tail import IntegratedTail
 from core.portfolio import Line, Portfolio
 from core.sampling import LineProposal, StepwiseTilt, TiltGrid, draw_block, draw_claims
 from core.severities import Capped, Exponential, Gamma, Lognormal, Normal, Pareto, Severity
@@ -57,6 +58,9 @@ def claim_cases() -> list[tuple[str, Severity, Callable[[Severity], StepwiseTilt
          lambda s: StepwiseTilt.for_severity(s, 0.6)),
         ("pareto capped tilt", Pareto(alpha=2.5, scale=1.0),
          lambda s: StepwiseTilt(TiltGrid(s, 5.0, cells=64), 0.8)),
+        # drawn within cells by rejection (a decreasing density), not by inversion
+        ("integrated gamma tail capped tilt", IntegratedTail(base=Gamma(shape=3.0, scale=1.0)),
+         lambda s: StepwiseTilt(TiltGrid(s, 20.0), 0.3)),
     ]
 
 

@@ -127,6 +127,25 @@ def test_equicorrelated_lognormals_match_common_factor_convolution() -> None:
     assert lo - 4 * e.std_error <= e.value <= hi + 4 * e.std_error, (e.value, lo, hi)
 
 
+def test_unequal_one_factor_lognormals_match_factor_convolution() -> None:
+    # Reference: a one-factor matrix with unequal loadings (valid, not equicorrelated):
+    # condition on the factor, convolve the independent amounts numerically with claims
+    # rounded down / up (an independent deterministic method, bench.dependence), integrate
+    # over the factor by the trapezoid rule. P is near 1e-7, where the allocation of samples
+    # among the pieces and the shared design-point shifts matter.
+    from bench.dependence import factor_reference
+
+    b = np.array([0.3, 0.45, 0.6, 0.7, 0.8, 0.9])
+    r = np.outer(b, b)
+    np.fill_diagonal(r, 1.0)
+    pf = _amounts([0.0] * 6, [1.0] * 6, r)
+    lo, hi = factor_reference(b, 1.0, 400.0, cells=8192)
+    e = exceedance(pf, [400.0], precision=Precision(samples=20_000), seed=6,
+                   method="conditional_is").estimates[0]
+    assert e.std_error is not None and e.diagnostics.reliable
+    assert lo - 4 * e.std_error <= e.value <= hi + 4 * e.std_error, (e.value, lo, hi)
+
+
 def _two_lines() -> list[Line]:
     return [Line(count=Poisson(mean=5.0), severity=Lognormal(mu=0.0, sigma=1.5), label="storm"),
             Line(count=Poisson(mean=20.0), severity=Gamma(shape=2.0, scale=1.0), label="motor")]

@@ -298,10 +298,11 @@ def _dependent_values(name: str, portfolio: Portfolio, points: np.ndarray,
                       anchors: Sequence[float], seed: int, *, euler: np.ndarray) -> BlockFn:
     """[exceedance | stop-loss | Euler terms] of a dependent portfolio's estimator."""
     from core.dependence import engine
+    from core.dependence.exceed import MEASURE_TAIL
 
     n_pts = points.size
     fn = engine.values(name, portfolio, points, anchors, euler, seed,
-                       smallest_tail=1e-9)
+                       smallest_tail=MEASURE_TAIL)
     width = 2 * n_pts + euler.size * len(portfolio.lines)
 
     def block(m: int, rng: np.random.Generator) -> np.ndarray:

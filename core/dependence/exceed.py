@@ -30,15 +30,21 @@ from core.streams import Purpose, Stream
 
 FloatArray = npt.NDArray[np.float64]
 PILOT_SAMPLES = 4096
+MEASURE_TAIL = 1e-9  # the smallest tail a risk-measure request's lattices resolve
 SHIFTED = ("conditional_is", "mean_shift")
 
 
-def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int) -> list[Group]:
+def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int, *,
+            measures: bool = False) -> list[Group]:
     parts = [[i] for i in range(x.size)] if name in SHIFTED else [list(range(x.size))]
     tail = 1e-12
     # Only exceedance columns are used here: lattices need to reach just past the largest
-    # threshold (a line beyond it exceeds every threshold in both bounds).
+    # threshold (a line beyond it exceeds every threshold in both bounds). A risk-measure
+    # request's pilot uses the lattices its main run builds (core.measures), so they are
+    # built once.
     top = 1.05 * float(np.max(x)) if float(np.min(x)) > 0 else None
+    if measures:
+        tail, top = MEASURE_TAIL, None
     out = []
     for idx in parts:
         pts = x[idx]
@@ -102,10 +108,10 @@ def _estimates(x: FloatArray, group: Group, stats: ContributionStats, samples: i
     return out
 
 
-def _pilot_cost(name: str, portfolio: Portfolio, x: FloatArray, seed: int
+def _pilot_cost(name: str, portfolio: Portfolio, x: FloatArray, seed: int, measures: bool
                 ) -> tuple[float, bool]:
     cost, reliable = 0.0, True
-    for k, group in enumerate(_groups(name, portfolio, x, seed)):
+    for k, group in enumerate(_groups(name, portfolio, x, seed, measures=measures)):
         rng = Stream(Purpose.PILOT, f"dependent:{name}", (k,)).rng(seed, 0)
         stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
         g = len(group.indices)
@@ -124,7 +130,7 @@ def choose(portfolio: Portfolio, x: FloatArray, seed: int, *, measures: bool = F
     refused: list[TailgaugeError] = []
     for name in engine.candidates(portfolio, measures=measures):
         try:
-            cost, ok = _pilot_cost(name, portfolio, x, seed)
+            cost, ok = _pilot_cost(name, portfolio, x, seed, measures)
         except (MethodError, LimitError) as exc:
             refused.append(exc)
             continue

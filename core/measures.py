@@ -249,6 +249,9 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
         e_se = se[-(tail_cols + 2 * g):-2 * g]
         measures = [with_contributions(_grid_widened(ms, a, bounds), a[idx], e_mean, e_se,
                                        portfolio) for ms in measures]
+        std_dev = _dependent_std_dev(portfolio)
+    else:
+        std_dev = portfolio.std_dev
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
     measures, layer_out, notes = check_tail(measures, layer_out)
@@ -265,7 +268,7 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
     return TailResult(
         method=name, method_reason=reason, seed=seed, elapsed_s=time.monotonic() - start,
         stopped_by=run.stopped_by, samples=run.samples, mean=portfolio.mean,
-        std_dev=portfolio.std_dev, measures=measures, layers=layer_out,
+        std_dev=std_dev, measures=measures, layers=layer_out,
         loss_exceedance=loss_out, warnings=warnings,
     )
 
@@ -285,6 +288,14 @@ def _grid_widened(ms: MeasureEstimate, a: np.ndarray,
                    ci_high=max(var.ci_high, high if high is not None else float(a[-1])),
                    std_error=var.std_error)
     return replace(ms, var=new)
+
+
+def _dependent_std_dev(portfolio: Portfolio) -> float:
+    """sqrt(Var S) under the copula (the independent formula would ignore the correlation)."""
+    from core.dependence.exceed import MEASURE_TAIL, dependent_moments
+    from core.dependence.marginals import line_quantiles
+
+    return dependent_moments(portfolio, line_quantiles(portfolio, MEASURE_TAIL))[1]
 
 
 def euler_points(portfolio: Portfolio, *, g: int) -> np.ndarray:

@@ -135,6 +135,35 @@ def _build(portfolio: Portfolio, smallest_tail: float, top_at: float | None
     return out
 
 
+def with_reach(quantiles: tuple[LineQuantile, ...], tail: float
+               ) -> tuple[LineQuantile, ...]:
+    """The same bounds with one lattice more per compound line whose largest top is short of
+    the point where the line's tail is below `tail` (moments need the whole range; a request
+    of exceedance builds lattices only up to its thresholds). Adding a lattice keeps every
+    bound valid: the bounds are the tightest over the lattices."""
+    from core.discretise import Grid
+    from core.recursion import aggregate
+
+    out = []
+    for q in quantiles:
+        lat = q.lattices
+        if lat is None:
+            out.append(q)
+            continue
+        top = _lattice_top(q.line, tail)
+        reach = max(s.size * h for s, h in zip(lat.survival_low, lat.spans, strict=True))
+        single = Portfolio(lines=[q.line])
+        lows, ups, spans = list(lat.survival_low), list(lat.survival_up), list(lat.spans)
+        while top > reach:  # T, T/8, ... down to the lattices there are
+            grid = Grid.with_top(top=top, cells=CELLS)
+            lows.append(aggregate(single, grid, "down", exact_tail=False).survival())
+            ups.append(aggregate(single, grid, "up", exact_tail=False).survival())
+            spans.append(grid.span)
+            top /= NESTING_RATIO
+        out.append(LineQuantile(q.line, Lattices(tuple(lows), tuple(ups), tuple(spans))))
+    return tuple(out)
+
+
 def _tops(top: float, mean: float) -> tuple[list[float], int]:
     """Lattice tops T, T/8, ... down to the line's mean (the first `main` of the list, at
     CELLS cells), then halvings of the two smallest (FILL_CELLS cells, above the mean): the

@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from core import degenerate
 from core.estimators import registry, select
 from core.estimators.base import Group
 from core.invariants import check_monotone, check_probability
@@ -77,6 +78,10 @@ def exceedance(
         from core.dependence.exceed import dependent_exceedance
 
         return dependent_exceedance(portfolio, x, method, precision, seed, start)
+    if method != registry.AUTO:
+        registry.get(method)  # an unknown method is refused even when the answer is known
+    if degenerate.surely_zero(portfolio):
+        return degenerate.exceedance(x, seed, start)
     if method == registry.AUTO:
         trials, reason = select.choose(portfolio, x, seed)
     else:

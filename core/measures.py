@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from core import degenerate
 from core.curves import (
     GRID,
     PILOT_SAMPLES,
@@ -183,6 +184,11 @@ def tail_estimates(
     seed = check_seed(seed)
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
+    if degenerate.surely_zero(portfolio):
+        return degenerate.tail(q, layers, losses, seed, start)
+    only_crude = _bounded_figures_of_infinite_mean(portfolio, q, layers, method)
+    if only_crude:
+        method = "crude"
     if (method != registry.AUTO and method in registry.names()
             and registry.get(method).deterministic):
         if portfolio.dependence is not None:
@@ -192,6 +198,9 @@ def tail_estimates(
         return registry.get(method).tail_bounds(portfolio, levels=list(q), layers=layers,
                                                 losses=losses, seed=seed)
     names, reason = _choose(portfolio, q, _extra_points(layers, losses), method, seed)
+    if only_crude:
+        reason = ("automatic choice: a line has an infinite mean claim; only crude estimates "
+                  "limited layers and loss probabilities of such a portfolio")
     first: TailResult | None = None
     for name in names:
         result = _estimate(name, portfolio, q, layers, losses, precision, seed, start, reason)
@@ -204,6 +213,23 @@ def tail_estimates(
             return result
     assert first is not None
     return first
+
+
+def _bounded_figures_of_infinite_mean(portfolio: Portfolio, q: np.ndarray,
+                                      layers: Sequence[Layer], method: str) -> bool:
+    """Whether auto must use crude: limited layers and loss probabilities exist whatever the
+    mean, but the other estimators build a layer from two stop-loss transforms, which are
+    infinite when a line's mean claim is. An explicit other method is refused at `method`;
+    TVaR and unlimited layers are left to the estimators' own refusal (they do not exist)."""
+    if math.isfinite(portfolio.mean) or q.size or any(ly.limit is None for ly in layers):
+        return False
+    if method not in ("auto", "crude"):
+        raise MethodError(
+            "method",
+            f"{method} cannot estimate layers of a portfolio with an infinite mean claim (it "
+            "differences two infinite stop-loss transforms); use crude or auto",
+        )
+    return method == "auto"
 
 
 def _extra_points(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:

@@ -221,6 +221,10 @@ def _tilt_upper(sev: Severity, theta: float) -> float:
     cap = getattr(sev, "cap", None)
     if cap is not None:
         return float(cap)
+    if math.isfinite(float(sev.support_max)):
+        # A bounded law (generalized Pareto with xi < 0) has no mass past its top; searching
+        # beyond it would stretch the cells over empty space (kappa' off by orders).
+        return float(sev.support_max)
     lo = max(float(sev.support_min), float(sev.ppf(1e-12)))
     hi = max(float(sev.isf(1e-3)), lo + 1.0)
     # e^{theta y} sf(y) bounds the tilted tail beyond y; stop 40 e-folds below its peak.

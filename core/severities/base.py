@@ -326,6 +326,10 @@ class Severity(abc.ABC):
         gaps = np.diff(np.concatenate([grid, [hi]])) if math.isfinite(hi) else None
         if gaps is not None:
             grid = grid[gaps > 1e-9 * max(abs(hi), 1e-300)]
+        if grid.size == 0 and math.isfinite(lo) and math.isfinite(hi) and hi > lo:
+            # Every quantile lies past the top (a limit far below the body of the law, its
+            # mass in the atom there): quadrature still needs breakpoints inside the support.
+            grid = lo + (hi - lo) * np.linspace(0.0, 1.0, 34)[1:-1]
         if math.isfinite(lo) and grid.size:
             grid = np.concatenate([lo + (grid[0] - lo) * np.logspace(-12.0, -0.5, 12), grid])
         return grid

@@ -49,8 +49,8 @@ def _run(
         stream = Stream(Purpose.SAMPLES, registry.get(name).stream, (gid,))
         # Under a time limit each sample set gets an equal share of what is left, so the
         # first threshold cannot use up the time of the others.
-        share = None if deadline is None else (
-            time.monotonic() + max(deadline - time.monotonic(), 0.0) / left)
+        now = time.monotonic()
+        share = None if deadline is None else now + max(deadline - now, 0.0) / left
         run: GroupRun = run_group(group, block, precision, seed, stream, share)
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()

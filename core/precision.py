@@ -20,6 +20,7 @@ from core.streams import Stream
 DEFAULT_SAMPLES = 100_000
 DEFAULT_MAX_SAMPLES = 2_000_000
 TOP_K = 1024
+LATE_BLOCK = 256
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -93,6 +94,11 @@ def run_group(
         # The round's blocks are fixed before anything runs, so whoever runs which span (the
         # current runner, core.spans), the merged figures are the same.
         plan = list(blocks(next_check - done, block, start=index))
+        if done == 0 and plan and deadline is not None and time.monotonic() > deadline:
+            # Out of time before this sample set began (earlier groups, adaptation): a
+            # short first block still gives an estimate with its error, not a whole block
+            # past the limit (time-limited figures are not reproducible anyway).
+            plan[0] = (plan[0][0], min(plan[0][1], LATE_BLOCK))
         cut = spans.cut(group, stream, seed, plan, top_k=TOP_K, width=runner.width,
                         deadline=spans.wall_deadline(deadline))
         for result in runner(cut):

@@ -67,7 +67,7 @@ def line_components(model: CreditModel, threshold: float) -> list[Component]:
     return out
 
 
-def columns(model: CreditModel, d: CreditDraw, x: np.ndarray, weight: np.ndarray
+def columns(d: CreditDraw, x: np.ndarray, weight: np.ndarray
             ) -> np.ndarray:
     """Weighted P(L > x) columns; with claim lines also those of the lower and upper lattice
     losses, which bound the lines' grid error."""
@@ -103,7 +103,7 @@ def plan(name: str, model: CreditModel, x: np.ndarray) -> list[Group]:
         sampler = Sampler(model, [], 1.0)
 
         def crude_values(m: int, rng: np.random.Generator) -> np.ndarray:
-            return columns(model, sampler.draw(m, rng), x, np.ones(m))
+            return columns(sampler.draw(m, rng), x, np.ones(m))
 
         return [Group(tuple(range(x.size)), crude_values, work(model, "crude"),
                       "indicator of L > x")]
@@ -120,7 +120,7 @@ def _twisted_group(model: CreditModel, i: int, x: float) -> Group:
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         d = sampler.draw(m, rng)
-        return columns(model, d, xs, np.exp(d.log_lr))
+        return columns(d, xs, np.exp(d.log_lr))
 
     mu = ", ".join(f"{v:.3g}" for v in comp.shift.mu)
     detail = f"Glasserman-Li: factor shift [{mu}], conditional twist to {x:g}"

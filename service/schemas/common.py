@@ -226,6 +226,13 @@ class LineSpec(RequestModel):
         default=None,
         description="Per-claim limit in money units (0 < limit <= 10^18); null = unlimited.",
     )
+    factor_loadings: list[Finite] | None = Field(
+        default=None, max_length=50,
+        description="In a book with lines of obligors: the line's loadings b on "
+        "portfolio.factors (one per factor, b' R b < 1); its latent variable is b . Z + "
+        "sqrt(1 - b' R b) e and its period loss F^{-1}(U) with its own compound law F, so the "
+        "mixed book has one dependence model. Required there; refused elsewhere.",
+    )
     parameter_uncertainty: ParameterUncertaintySpec | None = Field(
         default=None,
         description="Uncertainty of the severity's parameters (e.g. from /v1/fit): the "
@@ -265,7 +272,8 @@ class PortfolioSpec(RequestModel):
         description="Lines of business (independent unless `dependence` is given); the "
         "portfolio loss S is the sum of their per-period aggregate losses. A line may instead "
         "be a line of obligors {label?, obligors: group | [group...]} (see "
-        "service/schemas/credit.py): then every line must be one, on portfolio.factors.",
+        "service/schemas/credit.py) on portfolio.factors; claim lines beside them load on the "
+        "same factors (factor_loadings).",
     )
     factors: FactorsSpec | None = Field(
         default=None, description="Systematic factors of the obligor groups.")

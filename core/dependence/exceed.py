@@ -34,6 +34,7 @@ from core.streams import Purpose, Stream
 FloatArray = npt.NDArray[np.float64]
 PILOT_SAMPLES = 4096
 MEASURE_TAIL = 1e-9  # the smallest tail a risk-measure request's lattices resolve
+EXCEEDANCE_TAIL = 1e-12  # the same for an exceedance request
 SHIFTED = ("conditional_is", "mean_shift")
 
 
@@ -42,7 +43,7 @@ def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int, *,
     parts = [[i] for i in range(x.size)] if name in SHIFTED else [list(range(x.size))]
     # A risk-measure request's pilot uses the lattices its main run builds (core.measures),
     # so they are built once.
-    tail, top = (MEASURE_TAIL, None) if measures else (tail_of(x), top_of(x))
+    tail, top = (MEASURE_TAIL, None) if measures else (EXCEEDANCE_TAIL, top_of(x))
     out = []
     for idx in parts:
         pts = x[idx]
@@ -57,11 +58,6 @@ def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int, *,
 
         out.append(Group(tuple(idx), block, _work(name, portfolio, g), name))
     return out
-
-
-def tail_of(x: FloatArray) -> float:
-    del x
-    return 1e-12
 
 
 def top_of(x: FloatArray) -> float | None:
@@ -208,7 +204,7 @@ def dependent_exceedance(portfolio: Portfolio, x: FloatArray, method: str,
     warnings = warnings_for(estimates) + notes
     if stopped == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
-    mean, sd = dependent_moments(portfolio, line_quantiles(portfolio, tail_of(x),
+    mean, sd = dependent_moments(portfolio, line_quantiles(portfolio, EXCEEDANCE_TAIL,
                                                                top_of(x)))
     used = sorted({e.method for e in estimates})
     return ExceedanceResult(

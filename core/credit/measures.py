@@ -38,6 +38,7 @@ from core.curves import (
     _losses,
     _measure,
     _var_error,
+    lattice_widened,
     layout_block,
     point_columns,
 )
@@ -154,7 +155,7 @@ def credit_tail(
                             "increase samples")
     measures = [_snap(model, curves, _measure(curves, float(level))) for level in q]
     if model.lines:
-        measures = [_lattice_widened(curves, a, ms) for ms in measures]
+        measures = [lattice_widened(curves, ms) for ms in measures]
     if measures:
         measures = _with_contributions(model, name, measures, anchors, precision, seed, start)
     if run.stopped_by == "time_limit":
@@ -190,19 +191,6 @@ def _run(model: CreditModel, name: str, a: np.ndarray, q: np.ndarray,
     run = run_group(group, block_size(model), precision, seed,
                     Stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
     return _Curves(a, run.stats), run
-
-
-def _lattice_widened(curves: _Curves, a: np.ndarray, ms: MeasureEstimate) -> MeasureEstimate:
-    """Mixed books: the VaR interval widened to the lower lattice loss's lower band and the
-    upper one's upper band (the claim lines' grid error inside it, as core.measures does for
-    dependent lines)."""
-    from core.measures import _grid_widened
-
-    g = a.size
-    mean = np.asarray(curves.stats.mean(), dtype=float)
-    se = np.asarray(curves.stats.std_error(), dtype=float)
-    bounds = (mean[-2 * g:-g] - Z95 * se[-2 * g:-g], mean[-g:] + Z95 * se[-g:])
-    return _grid_widened(ms, a, bounds)
 
 
 def _snap_point(a: np.ndarray, x: float, h: float) -> float:

@@ -410,7 +410,8 @@ class ComputationOut(BaseModel):
     )
     std_dev: float | None = Field(
         description="Exact standard deviation of S in money units; null when infinite "
-        "(e.g. a Pareto line with alpha <= 2)."
+        "(e.g. a Pareto line with alpha <= 2) or not known to full accuracy (claim lines "
+        "loading on the credit factors of a mixed book)."
     )
     warnings: list[str] = Field(description="Things the caller should know about these figures.")
 

@@ -229,9 +229,11 @@ class LineSpec(RequestModel):
     factor_loadings: list[Finite] | None = Field(
         default=None, max_length=50,
         description="In a book with lines of obligors: the line's loadings b on "
-        "portfolio.factors (one per factor, b' R b < 1); its latent variable is b . Z + "
-        "sqrt(1 - b' R b) e and its period loss F^{-1}(U) with its own compound law F, so the "
-        "mixed book has one dependence model. Required there; refused elsewhere.",
+        "portfolio.factors (one per factor, b' R b < 1); its latent variable is Y = b . Z + "
+        "sqrt(1 - b' R b) e and its period loss F^{-1}(Phi(-Y)) with its own compound law F: "
+        "like an obligor's, the latent variable is adverse when low, so loadings of the same "
+        "sign make claims and defaults rise together. One dependence model for the mixed "
+        "book. Required there; refused elsewhere.",
     )
     parameter_uncertainty: ParameterUncertaintySpec | None = Field(
         default=None,

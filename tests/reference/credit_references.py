@@ -106,11 +106,12 @@ def poisson_gamma_sf(lam: float, shape: float, scale: float, y: np.ndarray) -> n
 def mixed_one_factor_tail(n: int, pd: float, rho: float, lgd: float, lam: float,
                           shape: float, scale: float, b: float, x: float) -> float:
     """P(L + S > x) for n obligors of exposure 1 (loading sqrt(rho), defaults when the latent
-    is below Phi^{-1}(pd)) beside a Poisson-gamma line whose latent b Z + sqrt(1 - b^2) e (the
-    same factor Z) is mapped to its loss by the exact compound quantile: given Z the defaults
-    are binomial and S > x - k lgd iff the line's latent exceeds Phi^{-1}(F(x - k lgd)), a
-    normal tail; integrated over Z (scipy.integrate.quad). b = 0 makes the line independent:
-    the convolution of the credit loss law with the compound law."""
+    is below Phi^{-1}(pd)) beside a Poisson-gamma line whose latent Y = b Z + sqrt(1 - b^2) e
+    (the same factor Z; adverse when low like an obligor's) is mapped to its loss by the
+    exact compound quantile F^{-1}(Phi(-Y)): given Z the defaults are binomial and
+    S > x - k lgd iff -Y exceeds Phi^{-1}(F(x - k lgd)), a normal tail; integrated over Z
+    (scipy.integrate.quad). b = 0 makes the line independent: the convolution of the credit
+    loss law with the compound law."""
     k = np.arange(n + 1)
     c = stats.norm.ppf(pd)
     f_line = np.clip(1.0 - poisson_gamma_sf(lam, shape, scale, x - k * lgd), 0.0, 1.0)
@@ -118,7 +119,7 @@ def mixed_one_factor_tail(n: int, pd: float, rho: float, lgd: float, lam: float,
 
     def f(z: float) -> float:
         p = stats.norm.cdf((c - math.sqrt(rho) * z) / math.sqrt(1.0 - rho))
-        cond = stats.norm.sf((level - b * z) / math.sqrt(1.0 - b * b))
+        cond = stats.norm.sf((level + b * z) / math.sqrt(1.0 - b * b))
         return float((stats.binom.pmf(k, n, p) * cond).sum() * stats.norm.pdf(z))
 
     return float(integrate.quad(f, -9, 9, limit=400, epsabs=0, epsrel=1e-9)[0])

@@ -76,15 +76,15 @@ def independent_tail_means(v: float) -> tuple[float, float]:
 
 def one_factor_sf(x: float, b_credit: float, b_line: float) -> float:
     """P(L + S > x) on one factor Z: given Z the defaults are binomial with the conditional
-    PD Phi((c - b Z) / sqrt(1 - b^2)) (Vasicek 1987), and S > y iff the line's latent
-    b' Z + sqrt(1 - b'^2) e exceeds Phi^{-1}(F(y)), a normal tail; integrated over Z by
-    scipy.integrate.quad."""
+    PD Phi((c - b Z) / sqrt(1 - b^2)) (Vasicek 1987), and with the line's loss F^{-1}(Phi(-Y))
+    (its latent Y = b' Z + sqrt(1 - b'^2) e adverse when low, like an obligor's) S > y iff -Y
+    exceeds Phi^{-1}(F(y)), a normal tail; integrated over Z by scipy.integrate.quad."""
     c = stats.norm.ppf(PD)
     level = stats.norm.isf(np.clip(line_sf(x - LGD * _K), 1e-300, 1.0))
 
     def f(z: float) -> float:
         p = stats.norm.cdf((c - b_credit * z) / math.sqrt(1.0 - b_credit**2))
-        cond = stats.norm.sf((level - b_line * z) / math.sqrt(1.0 - b_line**2))
+        cond = stats.norm.sf((level + b_line * z) / math.sqrt(1.0 - b_line**2))
         return float((stats.binom.pmf(_K, N, p) * cond).sum() * stats.norm.pdf(z))
 
     return float(integrate.quad(f, -9, 9, limit=400, epsabs=0, epsrel=1e-9)[0])
@@ -115,7 +115,8 @@ def test_zero_loadings_give_the_convolution_and_the_exact_moments(client: TestCl
 
 def test_loadings_on_one_factor_match_quadrature(client: TestClient) -> None:
     # Reference: one_factor_sf (binomial tails and the line's normal tail given the factor,
-    # integrated by scipy.integrate.quad); P near 5e-2, 4e-3 and 5e-5.
+    # integrated by scipy.integrate.quad); P near 4e-2, 4e-3 and 3e-5 (same-sign loadings:
+    # claims rise with defaults; with zero loading 3e-2, 1e-3, 1e-6).
     xs = [100.0, 150.0, 250.0]
     r = client.post("/v1/exceedance", json=_body(book(math.sqrt(RHO), 0.5), thresholds=xs))
     assert r.status_code == 200, r.text

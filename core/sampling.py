@@ -279,11 +279,12 @@ class StepwiseTilt:
 
 
 def _alias_table(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Walker's alias method (Vose's construction): O(1) draws from a discrete law."""
+    """Walker's alias method (Vose's construction): O(1) draws from a discrete law. The loop
+    runs on Python floats: numpy scalar indexing would cost ten times more."""
     k = p.size
-    scaled = p * k
-    accept = np.ones(k)
-    alias = np.arange(k)
+    scaled = (p * k).tolist()
+    accept = [1.0] * k
+    alias = list(range(k))
     small = [i for i in range(k) if scaled[i] < 1.0]
     large = [i for i in range(k) if scaled[i] >= 1.0]
     while small and large:
@@ -291,4 +292,4 @@ def _alias_table(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         accept[s_i], alias[s_i] = scaled[s_i], l_i
         scaled[l_i] -= 1.0 - scaled[s_i]
         (small if scaled[l_i] < 1.0 else large).append(l_i)
-    return accept, alias
+    return np.array(accept), np.array(alias, dtype=np.int64)

@@ -4,8 +4,8 @@ On top of the Asmussen-Kroese conditioning of core.estimators.conditional, the o
 the conditioned lines are drawn from a capped exponential tilt e^{theta min(y, c)} and their
 counts from the matching tilted law, theta adapted by moment matching (cross-entropy) from a
 short pilot, in a defensive mixture with the model itself. The likelihood ratio is exact for
-what is drawn. Exceedance gets one adapted sample set per threshold; risk measures and layers a
-mixture of components adapted at a few anchor points.
+what is drawn. Exceedance gets one sample set for all thresholds, from a mixture of components
+adapted at each of them; risk measures and layers a mixture adapted at a few anchor points.
 """
 
 from __future__ import annotations
@@ -50,51 +50,57 @@ def capped_family(cond: Conditioning, x: float) -> TiltFamily:
 
 
 def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream) -> tuple[TiltFamily, float]:
-    """Moment matching (the cross-entropy update of a natural exponential family) from the
-    start E_theta[S_-] = x, round r on block r of `stream`; returns the family and theta."""
+    """One threshold's adapted family and theta (adapt_many with one threshold)."""
+    family, thetas = adapt_many(portfolio, np.array([x]), seed, stream)
+    return family, thetas[0]
+
+
+def adapt_many(portfolio: Portfolio, xs: np.ndarray, seed: int, stream: Stream
+               ) -> tuple[TiltFamily, list[float]]:
+    """Moment matching (the cross-entropy update of a natural exponential family) of one theta
+    per threshold, from the start E_theta[S_-] = x, round r on block r of `stream`. Each round
+    draws one sample set from the current mixture; weighted by the mixture's exact likelihood
+    ratio it estimates every threshold's update at once. The family's caps are set at the
+    largest threshold (as for risk measures), so one set of reference points serves all."""
     cond = Conditioning(portfolio)
-    family = capped_family(cond, x)
-    theta = family.theta_for(x)
-    xs = np.array([x])
+    xs = np.asarray(xs, dtype=float)
+    family = capped_family(cond, float(xs.max()))
+    thetas = [family.theta_for(float(x)) for x in xs]
     for r in range(_CE_ROUNDS):
         rng = stream.rng(seed, r)
         j = cond.choose(_CE_SAMPLES, rng)
-        draw = family.draw([theta], _CE_SAMPLES, rng, j, defensive=DEFENSIVE)
-        v = cond.values(draw, j, xs)[:, 0]
-        total = v.sum()
-        if total > 0 and np.isfinite(total):
-            refs = np.zeros(v.size)
-            for k in family.grids:
-                score = draw.line_scores[k]
-                assert score is not None
-                refs += score
-            theta = family.theta_for(float(v @ refs / total))
-    return family, theta
+        draw = family.draw(thetas, _CE_SAMPLES, rng, j, defensive=DEFENSIVE)
+        v = cond.values(draw, j, xs)
+        refs = np.zeros(_CE_SAMPLES)
+        for k in family.grids:
+            score = draw.line_scores[k]
+            assert score is not None
+            refs += score
+        totals = v.sum(axis=0)
+        thetas = [family.theta_for(float(v[:, i] @ refs / totals[i]))
+                  if totals[i] > 0 and np.isfinite(totals[i]) else thetas[i]
+                  for i in range(xs.size)]
+    return family, thetas
 
 
 def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
-    """Asmussen-Kroese with adapted importance sampling: one sample set per threshold."""
+    """Asmussen-Kroese with adapted importance sampling: one sample set for every threshold,
+    drawn from the defensive mixture of the thresholds' adapted tilts; every threshold is
+    weighted by the mixture's exact likelihood ratio and keeps its own diagnostics."""
     cond = Conditioning(portfolio)
-    groups = []
-    for i, x in enumerate(np.asarray(thresholds, dtype=float)):
-        stream = Stream(Purpose.ADAPT, NAME, (i,))
-        family, theta = adapt(portfolio, float(x), seed, stream)
-        groups.append(_is_group(cond, family, theta, i, float(x)))
-    return groups
-
-
-def _is_group(cond: Conditioning, family: TiltFamily, theta: float, i: int, x: float) -> Group:
-    xs = np.array([x])
+    xs = np.asarray(thresholds, dtype=float)
+    family, thetas = adapt_many(portfolio, xs, seed, Stream(Purpose.ADAPT, NAME, (0,)))
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         j = cond.choose(m, rng)
-        return cond.values(family.draw([theta], m, rng, j, defensive=DEFENSIVE), j, xs)
+        return cond.values(family.draw(thetas, m, rng, j, defensive=DEFENSIVE), j, xs)
 
     caps = ", ".join(f"line {k} cap {float(g.ref[-1]):.4g}" for k, g in family.grids.items()
                      if g is not None)
-    work = work_per_sample(cond.portfolio.expected_claims, 1)
-    return Group((i,), values, work,
-                 f"Asmussen-Kroese with capped exponential tilt theta = {theta:.4g} ({caps})")
+    shown = ", ".join(f"{t:.4g}" for t in thetas)
+    work = work_per_sample(cond.portfolio.expected_claims, xs.size)
+    return [Group(tuple(range(xs.size)), values, work,
+                  f"Asmussen-Kroese with capped exponential tilts theta = {shown} ({caps})")]
 
 
 def sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequence[float], seed: int) -> BlockFn:

@@ -4,8 +4,9 @@ On top of the Asmussen-Kroese conditioning of core.estimators.conditional, the o
 the conditioned lines are drawn from a capped exponential tilt e^{theta min(y, c)} and their
 counts from the matching tilted law, theta adapted by moment matching (cross-entropy) from a
 short pilot, in a defensive mixture with the model itself. The likelihood ratio is exact for
-what is drawn. Exceedance gets one sample set for all thresholds, from a mixture of components
-adapted at each of them; risk measures and layers a mixture adapted at a few anchor points.
+what is drawn. Exceedance thresholds with close caps share one sample set, drawn from a mixture
+of components adapted at each of them (the exact mixture likelihood ratio); risk measures and
+layers a mixture adapted at a few anchor points.
 """
 
 from __future__ import annotations
@@ -33,6 +34,8 @@ _CE_SAMPLES = 4096
 DEFENSIVE = 0.1
 # The capped tilt acts up to this multiple of the threshold's share per expected claim.
 _CAP_FACTOR = 3.0
+# Thresholds share a sample set only when their caps are within this factor (cap_groups).
+CAP_SPREAD = 1.5
 
 
 def capped_family(cond: Conditioning, x: float) -> TiltFamily:
@@ -83,14 +86,45 @@ def adapt_many(portfolio: Portfolio, xs: np.ndarray, seed: int, stream: Stream
     return family, thetas
 
 
+def _caps(cond: Conditioning, x: float) -> np.ndarray:
+    return np.array([float(g.ref[-1]) for g in capped_family(cond, x).grids.values()
+                     if g is not None])
+
+
+def cap_groups(cond: Conditioning, xs: np.ndarray) -> list[list[int]]:
+    """Neighbouring thresholds whose capped tilts have caps within CAP_SPREAD of each other
+    (on every tilted line). A cap far from a threshold's own costs it precision both ways
+    (for 10 lognormal(0, 1) claims: a cap 2.5 times too high doubles the relative error at
+    P = 1e-3, one 2.5 times too low doubles it at 1e-7), so only such thresholds can share."""
+    out: list[list[int]] = []
+    low: np.ndarray | None = None
+    for i in (int(k) for k in np.argsort(xs, kind="stable")):
+        caps = _caps(cond, float(xs[i]))
+        if low is not None and np.all(caps <= CAP_SPREAD * low):
+            out[-1].append(i)
+        else:
+            out.append([i])
+            low = caps
+    return out
+
+
 def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
-    """Asmussen-Kroese with adapted importance sampling: one sample set for every threshold,
-    drawn from the defensive mixture of the thresholds' adapted tilts; every threshold is
-    weighted by the mixture's exact likelihood ratio and keeps its own diagnostics."""
+    """Asmussen-Kroese with adapted importance sampling. Thresholds with close caps
+    (cap_groups) share one sample set, drawn from the defensive mixture of their components
+    (adapted jointly) and weighted by its exact likelihood ratio; each keeps its own
+    diagnostics. A single threshold is the one-component case."""
     cond = Conditioning(portfolio)
     xs = np.asarray(thresholds, dtype=float)
-    family, thetas = adapt_many(portfolio, xs, seed, Stream(Purpose.ADAPT, NAME, (0,)))
+    out = []
+    for gid, members in enumerate(cap_groups(cond, xs)):
+        family, thetas = adapt_many(portfolio, xs[members], seed,
+                                    Stream(Purpose.ADAPT, NAME, (gid,)))
+        out.append(_is_group(cond, family, thetas, members, xs[members]))
+    return out
 
+
+def _is_group(cond: Conditioning, family: TiltFamily, thetas: list[float], members: list[int],
+              xs: np.ndarray) -> Group:
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         j = cond.choose(m, rng)
         return cond.values(family.draw(thetas, m, rng, j, defensive=DEFENSIVE), j, xs)
@@ -99,8 +133,8 @@ def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Gro
                      if g is not None)
     shown = ", ".join(f"{t:.4g}" for t in thetas)
     work = work_per_sample(cond.portfolio.expected_claims, xs.size)
-    return [Group(tuple(range(xs.size)), values, work,
-                  f"Asmussen-Kroese with capped exponential tilts theta = {shown} ({caps})")]
+    return Group(tuple(members), values, work,
+                 f"Asmussen-Kroese with capped exponential tilts theta = {shown} ({caps})")
 
 
 def sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequence[float], seed: int) -> BlockFn:

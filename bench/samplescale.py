@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import tempfile
 import time
 from collections.abc import Callable
@@ -87,6 +88,10 @@ def pilots_table(samples: int, repeats: int, http: bool) -> dict[str, Any]:
     return {"seconds": seconds, "auto_chose": chosen.method, "reason": chosen.method_reason}
 
 
+def _ratio(a: float | None, b: float | None) -> float:
+    return math.nan if a is None or b is None or b == 0 else a / b
+
+
 def sharing_table(samples: int, repeats: int) -> dict[str, Any]:
     """conditional_is on 20 thresholds at once against each threshold alone."""
     calls = {"one threshold": _direct("conditional_is", [ONE], samples),
@@ -101,7 +106,7 @@ def sharing_table(samples: int, repeats: int) -> dict[str, Any]:
         rows.append({"threshold": x, "probability": est.probability,
                      "shared_relative_error": est.relative_error,
                      "alone_relative_error": alone.relative_error,
-                     "ratio": est.relative_error / alone.relative_error,
+                     "ratio": _ratio(est.relative_error, alone.relative_error),
                      "shared_reliable": est.diagnostics.reliable,
                      "alone_reliable": alone.diagnostics.reliable,
                      "shared_pareto_k": est.diagnostics.pareto_k})

@@ -71,12 +71,26 @@ class Draw:
     line_scores: list[np.ndarray | None] = field(default_factory=list)
 
 
+def _equal(counts: np.ndarray) -> int | None:
+    """The common count when every sample has the same positive number of claims (a fixed
+    count): segments are then the rows of a reshape, several times faster than a scatter."""
+    if counts.size and counts[0] > 0 and counts.min() == counts.max():
+        return int(counts[0])
+    return None
+
+
 def segment_sum(values: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    n = _equal(counts)
+    if n is not None:
+        return np.asarray(values.reshape(counts.size, n).sum(axis=1), dtype=float)
     seg = np.repeat(np.arange(counts.size), counts)
     return np.bincount(seg, weights=values, minlength=counts.size)
 
 
 def segment_max(values: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    n = _equal(counts)
+    if n is not None:
+        return np.asarray(values.reshape(counts.size, n).max(axis=1), dtype=float)
     out = np.full(counts.size, -np.inf)
     nonempty = counts > 0
     if values.size:
@@ -211,7 +225,7 @@ class TiltGrid:
 
     def ref_of(self, y: np.ndarray) -> np.ndarray:
         """Reference point of the cell holding each y."""
-        return self.ref[self.cell_of(y)]
+        return np.asarray(self.ref[self.cell_of(y)], dtype=float)
 
     def tilted_mean_ref(self, theta: float) -> float:
         """E[ref] under the stepwise tilt by theta."""
@@ -271,9 +285,10 @@ class StepwiseTilt:
         self._residual = residual / total if self.base < 1.0 and total > 0 else self._weights
 
     @cached_property
-    def _alias(self) -> tuple[np.ndarray, np.ndarray]:
+    def _cumulative(self) -> np.ndarray:
         # Built only when drawing: root finding on theta needs log W alone.
-        return _alias_table(self._residual)
+        c = np.cumsum(self._residual)
+        return np.asarray(c / c[-1], dtype=float)
 
     @classmethod
     def for_severity(cls, sev: Severity, theta: float) -> StepwiseTilt:
@@ -281,38 +296,17 @@ class StepwiseTilt:
 
     def sample(self, size: int, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
         g = self.grid
-        own = rng.random(size) < self.base
-        mine = int(own.sum())
-        y = np.empty(size)
-        cell = np.empty(size, dtype=np.int64)
-        if mine:
-            y[own] = g.sev.sample(mine, rng)
-            cell[own] = g.cell_of(y[own])
-        rest = size - mine
-        if rest:
-            accept, alias = self._alias
-            k = accept.size
-            c = np.minimum((rng.random(rest) * k).astype(np.int64), k - 1)
-            c = np.where(rng.random(rest) < accept[c], c, alias[c])
+        # Every claim is first drawn from the severity; those not kept (a share 1 - base,
+        # chosen claim by claim so the claims stay independent) are drawn again by cell from
+        # the residual law. The ratio uses the cell each claim lies in.
+        redo = np.flatnonzero(rng.random(size) >= self.base)
+        y = np.asarray(g.sev.sample(size, rng), dtype=float)
+        if redo.size:
+            # The residual's cell by inverse cdf: only a share 1 - base of the claims gets here.
+            cum = self._cumulative
+            c = np.minimum(np.searchsorted(cum, rng.random(redo.size), side="right"),
+                           cum.size - 1)
             top, bottom = g.edges_sf[c], g.edges_sf[c + 1]
-            u = bottom + (top - bottom) * rng.random(rest)
-            y[~own] = np.asarray(g.sev.isf(np.clip(u, 1e-300, 1.0)), dtype=float)
-            cell[~own] = c
-        return y, self.log_w - self.theta * g.ref[cell]
-
-
-def _alias_table(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Walker's alias method (Vose's construction): O(1) draws from a discrete law. The loop
-    runs on Python floats: numpy scalar indexing would cost ten times more."""
-    k = p.size
-    scaled = (p * k).tolist()
-    accept = [1.0] * k
-    alias = list(range(k))
-    small = [i for i in range(k) if scaled[i] < 1.0]
-    large = [i for i in range(k) if scaled[i] >= 1.0]
-    while small and large:
-        s_i, l_i = small.pop(), large.pop()
-        accept[s_i], alias[s_i] = scaled[s_i], l_i
-        scaled[l_i] -= 1.0 - scaled[s_i]
-        (small if scaled[l_i] < 1.0 else large).append(l_i)
-    return np.array(accept), np.array(alias, dtype=np.int64)
+            u = bottom + (top - bottom) * rng.random(redo.size)
+            y[redo] = np.asarray(g.sev.isf(np.clip(u, 1e-300, 1.0)), dtype=float)
+        return y, self.log_w - self.theta * g.ref[g.cell_of(y)]

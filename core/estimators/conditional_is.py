@@ -43,12 +43,9 @@ def capped_family(cond: Conditioning, x: float) -> TiltFamily:
     conditioned, largest claim itself is never tilted). The cap c_k keeps each claim's own
     heavy tail beyond it, so one big claim is still covered by the conditioning."""
     lines = cond.portfolio.lines
-    claims = max(1.0, cond.portfolio.expected_claims)
     grids: dict[int, TiltGrid | None] = {}
     for k in cond.heavy:
-        sev = lines[k].paid_severity
-        cap = max(_CAP_FACTOR * x / claims, float(sev.isf(1e-3)))
-        grids[k] = TiltGrid(sev, min(cap, max(x, float(sev.isf(0.5)))))
+        grids[k] = TiltGrid(lines[k].paid_severity, _cap(cond, k, x))
     return TiltFamily(cond.portfolio, grids, lead=cond.heavy[int(np.argmax(cond.pick))])
 
 
@@ -86,9 +83,16 @@ def adapt_many(portfolio: Portfolio, xs: np.ndarray, seed: int, stream: Stream
     return family, thetas
 
 
+def _cap(cond: Conditioning, k: int, x: float) -> float:
+    """Where line k's capped tilt stops for threshold x (TiltGrid may widen a degenerate one)."""
+    sev = cond.portfolio.lines[k].paid_severity
+    claims = max(1.0, cond.portfolio.expected_claims)
+    cap = max(_CAP_FACTOR * x / claims, float(sev.isf(1e-3)))
+    return min(cap, max(x, float(sev.isf(0.5))))
+
+
 def _caps(cond: Conditioning, x: float) -> np.ndarray:
-    return np.array([float(g.ref[-1]) for g in capped_family(cond, x).grids.values()
-                     if g is not None])
+    return np.array([_cap(cond, k, x) for k in cond.heavy])
 
 
 def cap_groups(cond: Conditioning, xs: np.ndarray) -> list[list[int]]:

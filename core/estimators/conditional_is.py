@@ -11,10 +11,12 @@ layers a mixture adapted at a few anchor points.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Sequence
 
 import numpy as np
 
+from core.big_claim import BigClaim
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.estimators.conditional import Conditioning
 from core.estimators.estimator import Estimator, RuinRegime
@@ -36,6 +38,9 @@ DEFENSIVE = 0.1
 _CAP_FACTOR = 3.0
 # Thresholds share a sample set only when their caps are within this factor (cap_groups).
 CAP_SPREAD = 1.5
+# Share of samples in which one other claim of the lead line is drawn big (core.big_claim):
+# the conditioned contribution peaks where a second claim is large, a region the tilt thins.
+BIG_SHARE = 0.1
 
 
 def capped_family(cond: Conditioning, x: float) -> TiltFamily:
@@ -46,27 +51,35 @@ def capped_family(cond: Conditioning, x: float) -> TiltFamily:
     grids: dict[int, TiltGrid | None] = {}
     for k in cond.heavy:
         grids[k] = TiltGrid(lines[k].paid_severity, _cap(cond, k, x))
-    return TiltFamily(cond.portfolio, grids, lead=cond.heavy[int(np.argmax(cond.pick))])
+    lead = cond.heavy[int(np.argmax(cond.pick))]
+    line = lines[lead]
+    big = BigClaim.for_threshold(lead, line.paid_severity, line.paid_count.mean, x)
+    return TiltFamily(cond.portfolio, grids, lead=lead, big=big, big_share=BIG_SHARE)
 
 
-def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream) -> tuple[TiltFamily, float]:
+def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream,
+          deadline: float | None = None) -> tuple[TiltFamily, float]:
     """One threshold's adapted family and theta (adapt_many with one threshold)."""
-    family, thetas = adapt_many(portfolio, np.array([x]), seed, stream)
+    family, thetas = adapt_many(portfolio, np.array([x]), seed, stream, deadline)
     return family, thetas[0]
 
 
-def adapt_many(portfolio: Portfolio, xs: np.ndarray, seed: int, stream: Stream
-               ) -> tuple[TiltFamily, list[float]]:
+def adapt_many(portfolio: Portfolio, xs: np.ndarray, seed: int, stream: Stream,
+               deadline: float | None = None) -> tuple[TiltFamily, list[float]]:
     """Moment matching (the cross-entropy update of a natural exponential family) of one theta
     per threshold, from the start E_theta[S_-] = x, round r on block r of `stream`. Each round
     draws one sample set from the current mixture; weighted by the mixture's exact likelihood
-    ratio it estimates every threshold's update at once. The family's caps are set at the
-    largest threshold (as for risk measures), so one set of reference points serves all."""
+    ratio it estimates every threshold's update at once. The family's caps and its big-claim
+    component are set at the largest threshold (as for risk measures), so one set of reference
+    points serves all. Past the deadline no further round runs: any theta keeps the estimator
+    unbiased (the likelihood ratio is exact), adaptation only lowers its variance."""
     cond = Conditioning(portfolio)
     xs = np.asarray(xs, dtype=float)
     family = capped_family(cond, float(xs.max()))
     thetas = [family.theta_for(float(x)) for x in xs]
     for r in range(_CE_ROUNDS):
+        if deadline is not None and time.monotonic() > deadline:
+            break
         rng = stream.rng(seed, r)
         j = cond.choose(_CE_SAMPLES, rng)
         draw = family.draw(thetas, _CE_SAMPLES, rng, j, defensive=DEFENSIVE)
@@ -112,7 +125,8 @@ def cap_groups(cond: Conditioning, xs: np.ndarray) -> list[list[int]]:
     return out
 
 
-def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int,
+            deadline: float | None = None) -> list[Group]:
     """Asmussen-Kroese with adapted importance sampling. Thresholds with close caps
     (cap_groups) share one sample set, drawn from the defensive mixture of their components
     (adapted jointly) and weighted by its exact likelihood ratio; each keeps its own
@@ -122,7 +136,7 @@ def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Gro
     out = []
     for gid, members in enumerate(cap_groups(cond, xs)):
         family, thetas = adapt_many(portfolio, xs[members], seed,
-                                    Stream(Purpose.ADAPT, NAME, (gid,)))
+                                    Stream(Purpose.ADAPT, NAME, (gid,)), deadline)
         out.append(_is_group(cond, family, thetas, members, xs[members]))
     return out
 
@@ -173,8 +187,9 @@ class ConditionalIS(Estimator):
     def candidate_rank(self, portfolio: Portfolio) -> int | None:
         return None if portfolio.is_light else 1
 
-    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
-        return plan_is(portfolio, thresholds, seed)
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
+             deadline: float | None = None) -> list[Group]:
+        return plan_is(portfolio, thresholds, seed, deadline)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
                       seed: int) -> BlockFn:

@@ -46,8 +46,9 @@ def candidates(portfolio: Portfolio) -> list[str]:
     return registry.candidates(portfolio)
 
 
-def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> list[Group]:
-    return registry.get(name).plan(portfolio, x, seed)
+def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int,
+         deadline: float | None = None) -> list[Group]:
+    return registry.get(name).plan(portfolio, x, seed, deadline=deadline)
 
 
 @dataclass
@@ -76,10 +77,10 @@ def _pilot_stats(name: str, group: Group, g: int, seed: int, samples: int | None
 
 
 def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int,
-          samples: int | None = None) -> Trial:
+          samples: int | None = None, deadline: float | None = None) -> Trial:
     """Pilot one candidate. samples: the request's samples per sample set, for an exceedance
     pilot that the estimate continues; None: a separate pilot of PILOT_SAMPLES."""
-    groups = plan(name, portfolio, x, seed)
+    groups = plan(name, portfolio, x, seed, deadline)
     relvar = np.full(x.size, math.inf)
     reliable = np.zeros(x.size, dtype=bool)
     cost = 0.0
@@ -101,8 +102,8 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int,
     return Trial(name, groups, cost, reliable, relvar, None if samples is None else begun)
 
 
-def choose(portfolio: Portfolio, x: np.ndarray, seed: int, samples: int | None = None
-           ) -> tuple[list[Trial], str]:
+def choose(portfolio: Portfolio, x: np.ndarray, seed: int, samples: int | None = None,
+           deadline: float | None = None) -> tuple[list[Trial], str]:
     """Trials ordered best first, and the reason in words. samples: as in `pilot`."""
     trials: list[Trial] = []
     refused: list[TailgaugeError] = []
@@ -111,7 +112,7 @@ def choose(portfolio: Portfolio, x: np.ndarray, seed: int, samples: int | None =
         size = pilot_samples(samples, block_size(portfolio))
     for name in candidates(portfolio):
         try:
-            trials.append(pilot(name, portfolio, x, seed, samples))
+            trials.append(pilot(name, portfolio, x, seed, samples, deadline))
         except (LimitError, MethodError) as exc:
             # A candidate that cannot serve this request leaves the choice to the others.
             refused.append(exc)

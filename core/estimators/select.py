@@ -28,7 +28,7 @@ PILOT_SAMPLES = 4096
 # An exceedance pilot spends about this share of the request per candidate, within bounds:
 # the losers' pilots are the price of the choice, so it must stay a small part of the run.
 PILOT_SHARE = 0.125
-PILOT_MIN, PILOT_MAX = 2048, 65536
+PILOT_MIN, PILOT_MAX = 4096, 65536
 
 
 def pilot_samples(request: int, block: int) -> int:

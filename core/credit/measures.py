@@ -38,6 +38,7 @@ from core.curves import (
     _losses,
     _measure,
     _var_error,
+    lattice_widened,
     layout_block,
     point_columns,
 )
@@ -78,12 +79,19 @@ def guess_var(model: CreditModel, q: float) -> float:
     return credit + sum(float(lq.bounds(ubar)[0][0]) for lq in lines.quantiles)
 
 
-def _values(sampler: Sampler, points: np.ndarray) -> BlockFn:
+def _values(sampler: Sampler, points: np.ndarray, grid: int = 0) -> BlockFn:
+    """[exceedance | stop loss] at the points; with claim lines and grid > 0 then the
+    exceedance of the lower and upper lattice losses at the first `grid` points (the bounds
+    of the lines' grid error, kept last by layout_block)."""
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         d = sampler.draw(m, rng)
         lr = np.exp(d.log_lr)[:, None]
         over = d.total[:, None] - points[None, :]
-        return np.hstack([(over > 0) * lr, np.maximum(over, 0.0) * lr])
+        cols = [(over > 0) * lr, np.maximum(over, 0.0) * lr]
+        if grid and d.total_lo is not None and d.total_hi is not None:
+            a = points[None, :grid]
+            cols += [(d.total_lo[:, None] > a) * lr, (d.total_hi[:, None] > a) * lr]
+        return np.hstack(cols)
 
     return values
 
@@ -146,6 +154,8 @@ def credit_tail(
             warnings.append(f"VaR interval at levels {missing} runs past the estimation grid; "
                             "increase samples")
     measures = [_snap(model, curves, _measure(curves, float(level))) for level in q]
+    if model.lines:
+        measures = [lattice_widened(curves, ms) for ms in measures]
     if measures:
         measures = _with_contributions(model, name, measures, anchors, precision, seed, start)
     if run.stopped_by == "time_limit":
@@ -173,8 +183,8 @@ def _run(model: CreditModel, name: str, a: np.ndarray, q: np.ndarray,
          precision: Precision, seed: int, start: float) -> tuple[_Curves, GroupRun]:
     extra = point_columns(layers, losses)
     points = np.concatenate([a, np.asarray(extra, dtype=float)])
-    block = layout_block(_values(_sampler(model, name, anchors), points), a.size, layers,
-                         losses)
+    block = layout_block(_values(_sampler(model, name, anchors), points,
+                                 a.size if model.lines else 0), a.size, layers, losses)
     group = Group((0,), block, work(model, name, len(spread_out(anchors))), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     error_of = _var_error(q, a) if q.size else _layer_error(a.size)

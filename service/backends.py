@@ -7,6 +7,7 @@ Dask is imported only when `executor: dask` is chosen, so the service starts wit
 
 from __future__ import annotations
 
+import contextlib
 import multiprocessing
 import os
 import threading
@@ -103,17 +104,26 @@ class LocalBackend:
             process.terminate()
 
 
+class Unavailable(Exception):
+    """The backend could not run a task through no fault of the request: the cluster's
+    scheduler is unreachable, or the workers running the task died more often than Dask
+    retries it. The service answers 503 worker_lost (a batch item is offered again)."""
+
+
 class DaskBackend:
     """Tasks go to a Dask distributed scheduler. A worker that dies takes its running tasks
     with it; the scheduler starts them again on another worker (Dask's own rule, up to
     `distributed.scheduler.allowed-failures` times), and since a task's random streams are
-    fixed by the request, the figures do not change."""
+    fixed by the request, the figures do not change. While the scheduler is unreachable, tasks
+    are refused at once (Unavailable) and a background thread connects again every
+    `RECONNECT_S` seconds."""
 
     remote = True
     # A task's trip through the scheduler takes milliseconds: a second task per worker thread
     # waits on the worker, so the thread never idles between spans.
     depth = 2
     SLOTS_REFRESH_S = 5.0
+    RECONNECT_S = 2.0
 
     def __init__(self, address: str, *, connect_timeout_s: float = 10.0) -> None:
         self.address = address
@@ -121,17 +131,31 @@ class DaskBackend:
         self.slots = 1
         self._client: Any = None
         self._slots_at = 0.0
+        self._lost: tuple[type[BaseException], ...] = ()
+        self._client_class: Any = None
+        self._reconnecting = threading.Lock()
+        self._stopped = threading.Event()
 
     def start(self) -> None:
         try:
-            from distributed import Client
+            from distributed import Client, KilledWorker
         except ImportError as exc:  # pragma: no cover - depends on the installation
             raise RuntimeError(
                 "executor 'dask' needs the distributed package: pip install 'tailgauge[dask]'"
             ) from exc
-        self._client = Client(  # type: ignore[no-untyped-call]
-            self.address, timeout=self.connect_timeout_s, set_as_default=False)
+        from concurrent.futures import CancelledError
+
+        # Failures of the cluster, not of the task: the connection (OSError, which Dask's
+        # CommClosedError is), a task Dask gave up on after its workers died, or a future the
+        # cluster cancelled (the scheduler was lost). The engine does no I/O of its own.
+        self._lost = (OSError, KilledWorker, CancelledError)
+        self._client_class = Client
+        self._client = self._connect()
         self._refresh_slots(force=True)
+
+    def _connect(self) -> Any:
+        return self._client_class(self.address, timeout=self.connect_timeout_s,
+                                  set_as_default=False)
 
     def _refresh_slots(self, *, force: bool = False) -> None:
         now = time.monotonic()
@@ -141,36 +165,69 @@ class DaskBackend:
         threads = sum(self._client.nthreads().values())
         self.slots = max(1, int(threads))
 
+    def _reconnect_in_background(self) -> None:
+        # Called with a closed client (Dask closes it when the scheduler stays away longer
+        # than its connect timeout); one thread at a time tries a new one until it connects.
+        if not self._reconnecting.acquire(blocking=False):
+            return
+
+        def run() -> None:
+            try:
+                while not self._stopped.wait(self.RECONNECT_S):
+                    try:
+                        client = self._connect()
+                    except Exception:  # the scheduler is still away
+                        continue
+                    old, self._client = self._client, client
+                    if old is not None:
+                        with contextlib.suppress(Exception):
+                            old.close()
+                    return
+            finally:
+                self._reconnecting.release()
+
+        threading.Thread(target=run, name="tailgauge-dask-reconnect", daemon=True).start()
+
     def submit(self, fn: Callable[..., Any], *args: Any) -> Future[Any]:
         client = self._client
         if client is None:
             raise RuntimeError("the computation pool is not started")
-        self._refresh_slots()
+        if client.status != "running":
+            if client.status in ("closing", "closed"):
+                self._reconnect_in_background()
+            raise Unavailable(f"the Dask scheduler at {self.address} is not reachable "
+                              f"(client {client.status})")
+        try:
+            self._refresh_slots()
+            task = client.submit(fn, *args, pure=False)
+        except self._lost as exc:
+            raise Unavailable(f"the Dask scheduler at {self.address} is not reachable: "
+                              f"{exc}") from exc
         out: Future[Any] = Future()
-        task = client.submit(fn, *args, pure=False)
+        lost = self._lost
 
         def settle(done: Any) -> None:
             if out.done():
                 return
             try:
-                if done.status == "cancelled":
-                    out.cancel()
-                    out.set_running_or_notify_cancel()
-                    return
                 out.set_result(done.result())
+            except lost as exc:
+                out.set_exception(Unavailable(f"the Dask cluster did not run the task: "
+                                              f"{type(exc).__name__}: {exc}"))
             except BaseException as exc:  # the task's own error, raised again here
-                if not out.done():
-                    out.set_exception(exc)
+                out.set_exception(exc)
 
         def cancel(f: Future[Any]) -> None:
             if f.cancelled():
-                task.cancel()
+                with contextlib.suppress(Exception):  # a client already closed
+                    task.cancel()
 
         out.add_done_callback(cancel)
         task.add_done_callback(settle)
         return out
 
     def shutdown(self) -> None:
+        self._stopped.set()
         client, self._client = self._client, None
         if client is not None:
             client.close()

@@ -199,6 +199,12 @@ class ComputePool:
             raise ComputationUnavailable(
                 ("body",), "a computation worker stopped unexpectedly; try again", "worker_lost"
             ) from None
+        except backends.Unavailable as exc:
+            self.scheduler.close(job)
+            self.metrics.unavailable.labels("worker_lost").inc()
+            raise ComputationUnavailable(
+                ("body",), f"the computation cluster could not run this request ({exc}); try "
+                "again", "worker_lost") from None
 
 
 class _ClientGone(Exception):

@@ -6,7 +6,9 @@ large job's engine call runs in a server thread and sends its blocks as span tas
 next one by lane:
 
 - small lane first: a small request waits at most for one running task to end (a span is a few
-  tenths of a second at most), never behind a large request's queued blocks;
+  tenths of a second at most), never behind a large request's queued blocks; but with two
+  slots or more one slot is kept for large work while any is queued, so that a steady stream
+  of small requests does not starve the large ones;
 - then large jobs in arrival order: the oldest job's next span, then the next job's. Arrival
   order (not round-robin) lets the first of several large requests finish at full speed and
   makes the wait of the next one predictable.
@@ -163,7 +165,15 @@ class Scheduler:
 
     # --- dispatch -----------------------------------------------------------------------
     def _next(self) -> Task | None:
-        for lane in ("small", "large"):
+        # A steady stream of small requests would otherwise keep every slot and starve the
+        # large jobs until their time limit: with two slots or more, a large job's span goes
+        # first whenever no large task runs, so large work always holds one slot while small
+        # work has the others.
+        large_running = any(j.running for j in self._jobs if j.lane == "large")
+        order: tuple[Lane, ...] = ("small", "large")
+        if self.backend.slots >= 2 and not large_running:
+            order = ("large", "small")
+        for lane in order:
             for job in self._jobs:
                 if job.lane == lane and job.pending:
                     return job.pending.popleft()

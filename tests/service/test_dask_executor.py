@@ -16,6 +16,7 @@ import distributed  # the test extra has it; the service itself imports it only 
 import pytest
 
 import core
+from service.errors import ComputationUnavailable
 from service.executor import ComputePool, Cost
 from service.metrics import Metrics
 from tests.service.test_block_parallel import CALLS, SAMPLES, _figures, _split_run
@@ -93,3 +94,31 @@ def test_the_service_does_not_import_dask_unless_asked():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True, timeout=120)
     assert out.stdout.strip() == "False"
+
+
+def test_a_lost_scheduler_connection_is_a_503_at_once_and_the_pool_connects_again(cluster):
+    # Dask closes a client whose scheduler stayed away past its connect timeout; closing the
+    # client here stands for that. Requests are then refused at once (503 worker_lost, which a
+    # batch item retries) instead of failing with a 500 or waiting, and a background thread
+    # connects again (the scheduler is back: here it never left).
+    pool = ComputePool(kind="dask", workers=1, metrics=Metrics(),
+                       dask_scheduler=cluster.scheduler_address)
+    pool.start()
+    try:
+        pool.backend._client.close()
+        args = (CALLS["exceedance, conditional"][1][0], [40.0])
+        kwargs = {"precision": core.Precision(samples=2000), "seed": 9, "method": "conditional"}
+        started = time.monotonic()
+        with pytest.raises(ComputationUnavailable) as refused:
+            asyncio.run(pool.run(core.estimate_exceedance, *args, wall_limit_s=60,
+                                 cost=Cost(samples=2000), **kwargs))
+        assert refused.value.kind == "worker_lost"
+        assert time.monotonic() - started < 5.0  # told at once, not after the wall limit
+        deadline = time.monotonic() + 60
+        while pool.backend._client.status != "running" and time.monotonic() < deadline:
+            time.sleep(0.2)
+        again = asyncio.run(pool.run(core.estimate_exceedance, *args, wall_limit_s=60,
+                                     cost=Cost(samples=2000), **kwargs))
+        assert _figures(again) == _figures(core.estimate_exceedance(*args, **kwargs))
+    finally:
+        pool.shutdown()

@@ -44,6 +44,33 @@ def test_small_work_starts_before_the_queued_blocks_of_a_large_request(one_slot)
     assert log.index("small") == 1, log
 
 
+def test_a_stream_of_small_work_does_not_starve_a_large_request():
+    # Two slots: while small work is queued, large work still keeps one of them, so a large
+    # request progresses under a steady stream of small ones (it used to wait for the small
+    # lane to run dry, in a mixed load until its time limit).
+    backend = LocalBackend("thread", 2)
+    backend.start()
+    scheduler = Scheduler(backend)
+    try:
+        log: list[str] = []
+        small = scheduler.admit("small", 0.0, 60.0)
+        futures = [scheduler.submit(small, _record, log, "small0", 0.05, work=0.0, span=False),
+                   scheduler.submit(small, _record, log, "small1", 1.0, work=0.0, span=False)]
+        futures += [scheduler.submit(small, _record, log, f"small{i}", 0.05, work=0.0,
+                                     span=False) for i in range(2, 6)]
+        large = scheduler.admit("large", 0.0, 60.0)
+        futures += [scheduler.submit(large, _record, log, f"span{i}", 0.05, work=0.0,
+                                     span=False) for i in range(3)]
+        for future in futures:
+            future.result(timeout=20)
+        # small0 ended first: its slot went to the large request although small work waited
+        # (the other slot was still busy with small1).
+        assert sorted(log[:2]) == ["small0", "small1"], log
+        assert log[2:5] == ["span0", "span1", "span2"], log
+    finally:
+        backend.shutdown()
+
+
 def test_large_requests_are_served_in_arrival_order(one_slot):
     log: list[str] = []
     first, second = one_slot.admit("large", 0.0, 60.0), one_slot.admit("large", 0.0, 60.0)

@@ -49,7 +49,8 @@ class Outcome:
 
 
 def cases() -> list[tuple[Case, float]]:
-    """The three cases of issue 12 with their references (finer cell of the two checked)."""
+    """The three cases of issue 12 with their references (finer cell of the two checked), each
+    under auto and conditional_is."""
     weibull = Case("30 Weibull(0.3), P ~ 1e-8",
                    Portfolio(lines=[Line(count=Fixed(n=30), severity=Weibull(shape=0.3,
                                                                             scale=1.0))]),
@@ -62,10 +63,16 @@ def cases() -> list[tuple[Case, float]]:
               Portfolio(lines=[Line(count=Fixed(n=10), severity=Lognormal(mu=0.0,
                                                                            sigma=1.0))]),
               60.0, "conditional_is")
+    weibull_ref = references.fixed_weibull(0.3, 30, weibull.threshold, 0.25)
+    nb_ref = references.nb_lognormal(20.0, 3.0, 1.0, 1.2, nb.threshold, 0.05)
+    ln_ref = references.fixed_lognormal_tail(10, 0.0, 1.0, ln.threshold, 0.005)
     return [
-        (weibull, references.fixed_weibull(0.3, 30, weibull.threshold, 0.25)),
-        (nb, references.nb_lognormal(20.0, 3.0, 1.0, 1.2, nb.threshold, 0.05)),
-        (ln, references.fixed_lognormal_tail(10, 0.0, 1.0, ln.threshold, 0.005)),
+        (weibull, weibull_ref),
+        (Case(weibull.name, weibull.portfolio, weibull.threshold, "conditional_is"), weibull_ref),
+        (nb, nb_ref),
+        (Case(nb.name, nb.portfolio, nb.threshold, "conditional_is"), nb_ref),
+        (ln, ln_ref),
+        (Case(ln.name, ln.portfolio, ln.threshold, "auto"), ln_ref),
     ]
 
 

@@ -41,12 +41,17 @@ def _run(
     out: dict[int, ExceedanceEstimate] = {}
     stops: list[str] = []
     block = block_size(portfolio)
-    for gid, group in enumerate(groups):
-        if only is not None and not only.intersection(group.indices):
-            continue
+    todo = [gid for gid, group in enumerate(groups)
+            if only is None or only.intersection(group.indices)]
+    for k, gid in enumerate(todo):
+        group, left = groups[gid], len(todo) - k
         # Each method has its own streams so a fallback never reuses the first one's draws.
         stream = Stream(Purpose.SAMPLES, registry.get(name).stream, (gid,))
-        run: GroupRun = run_group(group, block, precision, seed, stream, deadline)
+        # Under a time limit each sample set gets an equal share of what is left, so the
+        # first threshold cannot use up the time of the others.
+        now = time.monotonic()
+        share = None if deadline is None else now + max(deadline - now, 0.0) / left
+        run: GroupRun = run_group(group, block, precision, seed, stream, share)
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(group.indices):
@@ -82,16 +87,16 @@ def exceedance(
         registry.get(method)  # an unknown method is refused even when the answer is known
     if degenerate.surely_zero(portfolio):
         return degenerate.exceedance(x, seed, start)
+    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     if method == registry.AUTO:
-        trials, reason = select.choose(portfolio, x, seed)
+        trials, reason = select.choose(portfolio, x, seed, deadline)
     else:
         chosen = registry.get(method)
         if chosen.deterministic:
             return chosen.exceedance_bounds(portfolio, x, precision, seed, start)
-        groups = chosen.plan(portfolio, x, seed)
+        groups = chosen.plan(portfolio, x, seed, deadline=deadline)
         trials, reason = [select.Trial(method, groups, 0.0, np.ones(x.size, bool),
                                        np.zeros(x.size))], f"{method} requested"
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     best = trials[0]
     found, stops = _run(best.groups, x, best.name, portfolio, precision, seed, deadline)
     if method == "auto":

@@ -101,6 +101,10 @@ class IntegratedTail(Severity):
     def tail(self) -> str:
         return self.base.tail
 
+    # The density sf(x) / mean never increases: stepwise tilts draw within their cells by
+    # rejection instead of inverting the survival function (core.sampling).
+    decreasing_density: ClassVar[bool] = True
+
     @property
     def cumulant_bound(self) -> float:
         # M_I(theta) = (M(theta) - 1) / (theta mean): finite exactly where M is
@@ -248,9 +252,11 @@ def _lognormal_logsf(base: Lognormal, x: _Floats, log_mean: float) -> _Floats:
 def _gamma_logsf(base: Gamma, x: _Floats) -> _Floats:
     # E[(X - x)+] / mean = Q(a + 1, u) - (u / a) Q(a, u), u = x / scale; the ratio of the two
     # terms stays below 1, so the difference is formed as log Q(a+1, u) + log1p(-ratio).
+    # Q(a + 1, u) = Q(a, u) + u^a e^-u / Gamma(a + 1) (DLMF 8.8.6): one incomplete gamma, not two.
     a, u = base.shape, x / base.scale
-    upper = Gamma(shape=a + 1.0, scale=1.0)._logsf(u)
     lower = Gamma(shape=a, scale=1.0)._logsf(u)
+    with np.errstate(divide="ignore"):
+        upper = np.logaddexp(lower, a * np.log(u) - u - special.gammaln(a + 1.0))
     log_ratio = np.log(u / a) + lower - upper
     return np.asarray(upper + np.log1p(-np.exp(np.minimum(log_ratio, 0.0))))
 

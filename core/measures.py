@@ -275,6 +275,9 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
         e_se = se[-(tail_cols + 2 * g):-2 * g]
         measures = [with_contributions(_grid_widened(ms, a, bounds), a[idx], e_mean, e_se,
                                        portfolio) for ms in measures]
+        std_dev = _dependent_std_dev(portfolio)
+    else:
+        std_dev = portfolio.std_dev
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
     measures, layer_out, notes = check_tail(measures, layer_out)
@@ -291,7 +294,7 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
     return TailResult(
         method=name, method_reason=reason, seed=seed, elapsed_s=time.monotonic() - start,
         stopped_by=run.stopped_by, samples=run.samples, mean=portfolio.mean,
-        std_dev=portfolio.std_dev, measures=measures, layers=layer_out,
+        std_dev=std_dev, measures=measures, layers=layer_out,
         loss_exceedance=loss_out, warnings=warnings,
     )
 
@@ -313,6 +316,14 @@ def _grid_widened(ms: MeasureEstimate, a: np.ndarray,
     return replace(ms, var=new)
 
 
+def _dependent_std_dev(portfolio: Portfolio) -> float:
+    """sqrt(Var S) under the copula (the independent formula would ignore the correlation)."""
+    from core.dependence.exceed import MEASURE_TAIL, dependent_moments
+    from core.dependence.marginals import line_quantiles
+
+    return dependent_moments(portfolio, line_quantiles(portfolio, MEASURE_TAIL))[1]
+
+
 def euler_points(portfolio: Portfolio, *, g: int) -> np.ndarray:
     """Grid points where the Euler terms E[S_i 1{S > a}] are kept (all for a few lines, every
     fourth for more, so the columns stay bounded)."""
@@ -324,10 +335,11 @@ def _dependent_values(name: str, portfolio: Portfolio, points: np.ndarray,
                       anchors: Sequence[float], seed: int, *, euler: np.ndarray) -> BlockFn:
     """[exceedance | stop-loss | Euler terms] of a dependent portfolio's estimator."""
     from core.dependence import engine
+    from core.dependence.exceed import MEASURE_TAIL
 
     n_pts = points.size
     fn = engine.values(name, portfolio, points, anchors, euler, seed,
-                       smallest_tail=1e-9)
+                       smallest_tail=MEASURE_TAIL)
     width = 2 * n_pts + euler.size * len(portfolio.lines)
 
     def block(m: int, rng: np.random.Generator) -> np.ndarray:

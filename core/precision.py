@@ -19,6 +19,7 @@ from core.streams import Stream
 DEFAULT_SAMPLES = 100_000
 DEFAULT_MAX_SAMPLES = 2_000_000
 TOP_K = 1024
+LATE_BLOCK = 256
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -89,6 +90,11 @@ def run_group(
     target = precision.relative_error
     while True:
         for b, m in blocks(next_check - done, block, start=index):
+            if done == 0 and deadline is not None and time.monotonic() > deadline:
+                # Out of time before this sample set began (earlier groups, adaptation): a
+                # short first block still gives an estimate with its error, not a whole block
+                # past the limit (time-limited figures are not reproducible anyway).
+                m = min(m, LATE_BLOCK)
             values = group.block_values(m, stream.rng(seed, b))
             parts.append(ContributionStats.from_samples(values, top_k=TOP_K, chunk=b))
             done, index = done + m, b + 1

@@ -14,6 +14,7 @@ from functools import cached_property
 
 import numpy as np
 
+from core.big_claim import BigClaim
 from core.counts import ClaimCount
 from core.errors import LimitError
 from core.portfolio import Portfolio
@@ -69,6 +70,9 @@ class Draw:
     line_counts: list[np.ndarray]
     # Per line, the sum over its claims of score(y) when a score function was given.
     line_scores: list[np.ndarray | None] = field(default_factory=list)
+    # Per sample, the big-claim component's sum of r(y) over the lead line's claims
+    # (core.big_claim), when one was given.
+    big_ratio: np.ndarray | None = None
 
 
 def segment_sum(values: np.ndarray, counts: np.ndarray) -> np.ndarray:
@@ -127,6 +131,8 @@ def draw_block(
     size_biased: np.ndarray | None = None,
     stepwise: list[StepwiseTilt | None] | None = None,
     scores: list[Callable[[np.ndarray], np.ndarray] | None] | None = None,
+    big: BigClaim | None = None,
+    big_mask: np.ndarray | None = None,
 ) -> Draw:
     """Draw m samples of the portfolio.
 
@@ -134,6 +140,8 @@ def draw_block(
     N* - 1 (size-biased minus one), as the conditional estimators need; -1 for none.
     scores: optional per-line function of the claims, summed per sample into line_scores
     (a mixture estimator needs the adapted proposal's ratio at draws it did not make).
+    big: the big-claim component (core.big_claim): its ratio sum is kept for every sample, and
+    the samples in big_mask get one claim of its line replaced by a big one.
     """
     lines = portfolio.lines
     proposals = proposals or [LineProposal()] * len(lines)
@@ -158,6 +166,12 @@ def draw_block(
         claims, claim_llr = draw_claims(
             line.paid_severity, prop, int(counts.sum()), rng, stepwise[k]
         )
+        if big is not None and big.line == k:
+            if big_mask is not None:
+                # The component draws the rest from the model, so no claim carries a ratio.
+                assert claim_llr is None and prop.count_tilt == 0.0
+                big.replace(claims, counts, big_mask, rng)
+            out.big_ratio = big.ratio_sum(claims, counts)
         sums = segment_sum(claims, counts)
         if claim_llr is not None:
             llr = llr + segment_sum(claim_llr, counts)
@@ -199,6 +213,11 @@ class TiltGrid:
     def for_tilt(cls, sev: Severity, theta: float, *, cells: int = 1024) -> TiltGrid:
         """A grid wide enough that the theta-tilted law has negligible mass beyond it."""
         return cls(sev, _tilt_upper(sev, theta), cells=cells)
+
+    @cached_property
+    def edge_log_pdf(self) -> np.ndarray:
+        """log density at the cell edges (for rejection within cells)."""
+        return np.asarray(self.sev.logpdf(self.edges), dtype=float)
 
     def ref_of(self, y: np.ndarray) -> np.ndarray:
         """Reference point of the cell holding each y (right-closed cells, so a cap's atom
@@ -273,9 +292,42 @@ class StepwiseTilt:
         cell = np.minimum((rng.random(size) * k).astype(np.int64), k - 1)
         cell = np.where(rng.random(size) < accept[cell], cell, alias[cell])
         top, bottom = g.edges_sf[cell], g.edges_sf[cell + 1]
-        u = bottom + (top - bottom) * rng.random(size)
-        y = np.asarray(g.sev.isf(np.clip(u, 1e-300, 1.0)), dtype=float)
+        u = np.clip(bottom + (top - bottom) * rng.random(size), 1e-300, 1.0)
+        if getattr(g.sev, "decreasing_density", False):
+            y = _decreasing_in_cells(g, cell, u, rng)
+        else:
+            y = np.asarray(g.sev.isf(u), dtype=float)
         return y, self.log_w - self.theta * g.ref[cell]
+
+
+def _decreasing_in_cells(g: TiltGrid, cell: np.ndarray, u: np.ndarray,
+                         rng: np.random.Generator) -> np.ndarray:
+    """Draws from the law restricted to each inner cell, for a density that never increases
+    (an integrated tail: sf / mean), by rejection from the uniform law on the cell: accept y
+    when V f(a) <= f(y), exact for a decreasing f; V f(a) <= f(b) accepts without evaluating
+    f at all (a squeeze), which holds for all but a hazard-times-width share of the draws.
+    The first cell (it holds the mass below the grid) and the open top cell invert u with the
+    law's own isf. An integrated gamma tail costs one incomplete gamma per rejected draw here
+    against a dozen per Newton inversion."""
+    sev = g.sev
+    y = np.empty(u.size)
+    inner = (cell > 0) & (cell < g.ref.size - 1)
+    if (~inner).any():
+        y[~inner] = sev.isf(u[~inner])
+    log_f = g.edge_log_pdf
+    todo = np.flatnonzero(inner)
+    while todo.size:
+        c = cell[todo]
+        a, b = g.edges[c], g.edges[c + 1]
+        cand = a + (b - a) * rng.random(todo.size)
+        level = np.log(rng.random(todo.size)) + log_f[c]
+        ok = level <= log_f[c + 1]
+        check = ~ok
+        if check.any():
+            ok[check] = level[check] <= np.asarray(sev.logpdf(cand[check]), dtype=float)
+        y[todo[ok]] = cand[ok]
+        todo = todo[~ok]
+    return y
 
 
 def _alias_table(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

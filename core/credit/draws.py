@@ -39,13 +39,17 @@ class Component:
     threshold: float
     shift: Shift
     w_shape: float | None
+    # Mixed books: a mean shift of the claim lines' own normals (None: from the model).
+    eps_shift: np.ndarray | None = None
 
 
 @dataclass
 class CreditDraw:
-    total: np.ndarray  # (m,) portfolio loss
-    group_loss: np.ndarray  # (m, G)
+    total: np.ndarray  # (m,) portfolio loss (claim lines at their lattice midpoints)
+    group_loss: np.ndarray  # (m, G + L): the groups' losses, then the claim lines'
     log_lr: np.ndarray  # (m,) log f/g of the whole sample (0 for the model itself)
+    total_lo: np.ndarray | None = None  # (m,) with the lines' lower / upper lattice
+    total_hi: np.ndarray | None = None  # quantiles (None without claim lines)
 
 
 def w_shape_for(model: CreditModel, shift: Shift) -> float | None:
@@ -124,12 +128,25 @@ class Sampler:
             if sel.any():
                 theta[sel] = solve_theta(model, self.tables, _rows(cond, sel), comp.threshold)
         loss, _ = _draw_losses(model, self.tables, cond, theta, rng)
-        total = loss.sum(axis=1)
-        return CreditDraw(total, loss, self._log_lr(cond, x, w, total, which, theta))
+        credit = loss.sum(axis=1)
+        lines = model.line_set
+        if lines is None:
+            return CreditDraw(credit, loss, self._log_lr(cond, x, w, credit, which, theta))
+        # Drawn last, so that a book without lines draws what it always drew.
+        eps = rng.standard_normal((m, len(lines.lines)))
+        for c, comp in enumerate(self.components, start=1):
+            if comp.eps_shift is not None:
+                eps[which == c] += comp.eps_shift[None, :]
+        log_lr = self._log_lr(cond, x, w, credit, which, theta, eps)
+        ll = lines.losses(x, w, eps)
+        return CreditDraw(credit + ll.mid.sum(axis=1), np.hstack([loss, ll.mid]), log_lr,
+                          credit + ll.lo.sum(axis=1), credit + ll.hi.sum(axis=1))
 
     def _log_lr(self, cond: Conditional, x: np.ndarray, w: np.ndarray | None,
-                total: np.ndarray, which: np.ndarray, theta: np.ndarray) -> np.ndarray:
-        """-log sum_l a_l g_l/f at every sample (0 when drawing from the model only)."""
+                total: np.ndarray, which: np.ndarray, theta: np.ndarray,
+                eps: np.ndarray | None = None) -> np.ndarray:
+        """-log sum_l a_l g_l/f at every sample (0 when drawing from the model only); total is
+        the credit loss (the one the twist is of)."""
         m = total.size
         if not self.components:
             return np.zeros(m)
@@ -142,6 +159,9 @@ class Sampler:
             log_g = x @ mu - 0.5 * float(mu @ mu) if mu.size else np.zeros(m)
             if w is not None and comp.w_shape is not None:
                 log_g = log_g + _log_w_ratio(self.model, comp.w_shape, w)
+            if eps is not None and comp.eps_shift is not None:
+                d = comp.eps_shift
+                log_g = log_g + eps @ d - 0.5 * float(d @ d)
             # Every component's twist at this sample's factors (its own theta where it drew).
             th = np.where(which == c, theta, np.nan)
             other = which != c

@@ -24,7 +24,7 @@ import numpy as np
 from scipy import stats
 
 from core.credit.draws import Component, Sampler
-from core.credit.estimators import DEFENSIVE, block_size, component, work
+from core.credit.estimators import DEFENSIVE, block_size, component, line_components, work
 from core.credit.exceedance import check_method, choose
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
@@ -68,7 +68,14 @@ def guess_var(model: CreditModel, q: float) -> float:
         c = c * math.sqrt(float(stats.chi2.ppf(1.0 - q, nu)) / nu)
     p = stats.norm.cdf((c[None, :] - x @ model.loadings_x.T) / model.residual_sd[None, :])[0]
     mu = np.array([float(lg.mean) for lg in model.lgds])
-    return float(max((model.counts * model.exposures * mu * p).sum(), model.mean))
+    credit = float(max((model.counts * model.exposures * mu * p).sum(), model.credit_mean))
+    # Claim lines: each at its own quantile of the level (a comonotone guess; only the
+    # pilot grid's placement depends on it).
+    lines = model.line_set
+    if lines is None:
+        return credit
+    ubar = np.array([1.0 - q])
+    return credit + sum(float(lq.bounds(ubar)[0][0]) for lq in lines.quantiles)
 
 
 def _values(sampler: Sampler, points: np.ndarray) -> BlockFn:
@@ -85,8 +92,10 @@ def _sampler(model: CreditModel, name: str, anchors: Sequence[float]) -> Sampler
     if name == "crude":
         return Sampler(model, [], 1.0)
     top = model.max_loss
-    comps: list[Component] = [component(model, float(x)) for x in spread_out(anchors)
-                              if 0 < x < top]
+    comps: list[Component] = []
+    for x in spread_out(anchors):
+        if 0 < x < top:
+            comps += [component(model, float(x)), *line_components(model, float(x))]
     return Sampler(model, comps, DEFENSIVE)
 
 
@@ -216,7 +225,7 @@ def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEst
     if not use.any():
         return measures
     sampler = _sampler(model, name, anchors)
-    gs, nv = len(model.groups), int(use.sum())
+    gs, nv = len(model.labels), int(use.sum())
     at = vs[use]
 
     def block(n: int, rng: np.random.Generator) -> np.ndarray:
@@ -249,7 +258,8 @@ def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEst
 
 def _contributions(model: CreditModel, m: MeasureEstimate, mean: np.ndarray,
                    var: np.ndarray, n: int) -> MeasureEstimate:
-    gs = len(model.groups)
+    labels = model.labels
+    gs = len(labels)
     a, s = mean[:gs], float(mean[gs])
     if s <= 0:
         return m
@@ -260,11 +270,11 @@ def _contributions(model: CreditModel, m: MeasureEstimate, mean: np.ndarray,
     tvar = m.tvar.value
     rel_t = (m.tvar.std_error or 0.0) / tvar if tvar > 0 else 0.0
     parts = []
-    for g, grp in enumerate(model.groups):
+    for g, label in enumerate(labels):
         c = tvar * float(r[g])
         rel = math.sqrt(float(var_r[g]) / float(r[g]) ** 2 + rel_t**2) if r[g] > 0 else 0.0
         half = Z95 * c * rel
-        parts.append(Contribution(label=grp.label or f"group {g}", tvar_contribution=c,
+        parts.append(Contribution(label=label, tvar_contribution=c,
                                   ci_low=max(0.0, c - half), ci_high=c + half))
     return MeasureEstimate(level=m.level, var=m.var, tvar=m.tvar, diagnostics=m.diagnostics,
                            contributions=parts)

@@ -151,7 +151,8 @@ class Conditional(Estimator):
     def candidate_rank(self, portfolio: Portfolio) -> int | None:
         return None if portfolio.is_light else 0
 
-    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
+             deadline: float | None = None) -> list[Group]:
         return plan_plain(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],

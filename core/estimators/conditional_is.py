@@ -10,10 +10,12 @@ mixture of components adapted at a few anchor points.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Sequence
 
 import numpy as np
 
+from core.big_claim import BigClaim
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.estimators.conditional import Conditioning
 from core.estimators.estimator import Estimator, RuinRegime
@@ -33,6 +35,9 @@ _CE_SAMPLES = 4096
 DEFENSIVE = 0.1
 # The capped tilt acts up to this multiple of the threshold's share per expected claim.
 _CAP_FACTOR = 3.0
+# Share of samples in which one other claim of the lead line is drawn big (core.big_claim):
+# the conditioned contribution peaks where a second claim is large, a region the tilt thins.
+BIG_SHARE = 0.1
 
 
 def capped_family(cond: Conditioning, x: float) -> TiltFamily:
@@ -46,17 +51,25 @@ def capped_family(cond: Conditioning, x: float) -> TiltFamily:
         sev = lines[k].paid_severity
         cap = max(_CAP_FACTOR * x / claims, float(sev.isf(1e-3)))
         grids[k] = TiltGrid(sev, min(cap, max(x, float(sev.isf(0.5)))))
-    return TiltFamily(cond.portfolio, grids, lead=cond.heavy[int(np.argmax(cond.pick))])
+    lead = cond.heavy[int(np.argmax(cond.pick))]
+    line = lines[lead]
+    big = BigClaim.for_threshold(lead, line.paid_severity, line.paid_count.mean, x)
+    return TiltFamily(cond.portfolio, grids, lead=lead, big=big, big_share=BIG_SHARE)
 
 
-def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream) -> tuple[TiltFamily, float]:
+def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream,
+          deadline: float | None = None) -> tuple[TiltFamily, float]:
     """Moment matching (the cross-entropy update of a natural exponential family) from the
-    start E_theta[S_-] = x, round r on block r of `stream`; returns the family and theta."""
+    start E_theta[S_-] = x, round r on block r of `stream`; returns the family and theta.
+    Past the deadline no further round runs: any theta keeps the estimator unbiased (the
+    likelihood ratio is exact), adaptation only lowers its variance."""
     cond = Conditioning(portfolio)
     family = capped_family(cond, x)
     theta = family.theta_for(x)
     xs = np.array([x])
     for r in range(_CE_ROUNDS):
+        if deadline is not None and time.monotonic() > deadline:
+            break
         rng = stream.rng(seed, r)
         j = cond.choose(_CE_SAMPLES, rng)
         draw = family.draw([theta], _CE_SAMPLES, rng, j, defensive=DEFENSIVE)
@@ -72,13 +85,14 @@ def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream) -> tuple[Ti
     return family, theta
 
 
-def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int,
+            deadline: float | None = None) -> list[Group]:
     """Asmussen-Kroese with adapted importance sampling: one sample set per threshold."""
     cond = Conditioning(portfolio)
     groups = []
     for i, x in enumerate(np.asarray(thresholds, dtype=float)):
         stream = Stream(Purpose.ADAPT, NAME, (i,))
-        family, theta = adapt(portfolio, float(x), seed, stream)
+        family, theta = adapt(portfolio, float(x), seed, stream, deadline)
         groups.append(_is_group(cond, family, theta, i, float(x)))
     return groups
 
@@ -129,8 +143,9 @@ class ConditionalIS(Estimator):
     def candidate_rank(self, portfolio: Portfolio) -> int | None:
         return None if portfolio.is_light else 1
 
-    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
-        return plan_is(portfolio, thresholds, seed)
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
+             deadline: float | None = None) -> list[Group]:
+        return plan_is(portfolio, thresholds, seed, deadline)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
                       seed: int) -> BlockFn:

@@ -35,7 +35,8 @@ class Crude(Estimator):
     def candidate_rank(self, portfolio: Portfolio) -> int | None:
         return 9  # always a candidate, and the last resort
 
-    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
+             deadline: float | None = None) -> list[Group]:
         return plan(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],

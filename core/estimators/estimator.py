@@ -72,8 +72,10 @@ class Estimator:
         ties of the pilot comparison); None: not a candidate."""
         return None
 
-    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
-        """Groups of thresholds sharing one sample set, for P(S > x)."""
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
+             deadline: float | None = None) -> list[Group]:
+        """Groups of thresholds sharing one sample set, for P(S > x); `deadline` (a
+        time.monotonic() value) bounds any adaptation done while planning."""
         raise MethodError("method", f"{self.name} cannot estimate exceedance probabilities")
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],

@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 from scipy.optimize import brentq
 
+from core.big_claim import BigClaim
 from core.portfolio import Portfolio
 from core.sampling import Draw, LineProposal, StepwiseTilt, TiltGrid, draw_block
 
@@ -33,8 +34,11 @@ class TiltFamily:
     estimators), used only to centre theta (one claim of that line is not drawn)."""
 
     def __init__(self, portfolio: Portfolio, grids: dict[int, TiltGrid | None],
-                 lead: int | None = None) -> None:
+                 lead: int | None = None, big: BigClaim | None = None,
+                 big_share: float = 0.0) -> None:
         self.portfolio, self.grids, self.lead = portfolio, grids, lead
+        # An optional component with one big claim on a line (core.big_claim).
+        self.big, self.big_share = big, (big_share if big is not None else 0.0)
 
     def _log_w(self, k: int, theta: float) -> float:
         grid = self.grids[k]
@@ -93,23 +97,33 @@ class TiltFamily:
 
     def draw(self, thetas: Sequence[float], m: int, rng: np.random.Generator,
              cond_line: np.ndarray | None = None, defensive: float = 0.0) -> Draw:
-        """m samples from defensive * model + (1 - defensive) * mean of the theta components."""
+        """m samples from defensive * model (+ big_share * the big-claim component) + the rest
+        shared equally by the theta components."""
         thetas = [float(t) for t in thetas]
-        weights = np.array([defensive] + [(1.0 - defensive) / len(thetas)] * len(thetas))
+        big = self.big if self.big_share > 0.0 else None
+        head = [defensive] + ([self.big_share] if big is not None else [])
+        rest = (1.0 - sum(head)) / len(thetas)
+        weights = np.array(head + [rest] * len(thetas))
         counts = rng.multinomial(m, weights)
         scores = self.scores()
         parts: list[Draw] = []
         start = 0
         for c, size in enumerate(counts):
-            props, steps = self.proposal(0.0 if c == 0 else thetas[c - 1])
+            props, steps = self.proposal(0.0 if c < len(head) else thetas[c - len(head)])
             sb = None if cond_line is None else cond_line[start:start + size]
+            mask = np.ones(int(size), bool) if big is not None and c == 1 else None
             parts.append(draw_block(self.portfolio, int(size), rng, proposals=props,
-                                    size_biased=sb, stepwise=steps, scores=scores))
+                                    size_biased=sb, stepwise=steps, scores=scores,
+                                    big=big, big_mask=mask))
             start += size
         draw = concat(parts)
         # log of sum_l a_l g_l/f, with the model itself as the component g_0 = f.
         terms = [np.full(m, math.log(weights[0])) if weights[0] > 0 else np.full(m, -np.inf)]
-        for c, theta in enumerate(thetas, start=1):
+        if big is not None:
+            assert draw.big_ratio is not None
+            n = draw.line_counts[big.line]
+            terms.append(math.log(weights[1]) + big.log_g_over_f(draw.big_ratio, n))
+        for c, theta in enumerate(thetas, start=len(head)):
             terms.append(math.log(weights[c]) - self.log_f_over_g(theta, draw, cond_line))
         draw.log_lr = -np.logaddexp.reduce(np.vstack(terms), axis=0)
         for k in self.grids:
@@ -164,8 +178,10 @@ def concat(parts: list[Draw]) -> Draw:
         return [None if any(c is None for c in col) else np.concatenate(col)
                 for col in zip(*columns, strict=True)]
 
+    ratios = [p.big_ratio for p in parts]
     return Draw(
         np.concatenate([p.total for p in parts]), np.concatenate([p.log_lr for p in parts]),
         cat("line_sums"), cat("line_max"), cat("line_log_lr"), cat("line_counts"),
         cat("line_scores"),
+        None if any(r is None for r in ratios) else np.concatenate(ratios),  # type: ignore[arg-type]
     )

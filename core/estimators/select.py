@@ -23,8 +23,9 @@ def candidates(portfolio: Portfolio) -> list[str]:
     return registry.candidates(portfolio)
 
 
-def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> list[Group]:
-    return registry.get(name).plan(portfolio, x, seed)
+def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int,
+         deadline: float | None = None) -> list[Group]:
+    return registry.get(name).plan(portfolio, x, seed, deadline=deadline)
 
 
 @dataclass
@@ -36,8 +37,9 @@ class Trial:
     relvar: np.ndarray
 
 
-def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
-    groups = plan(name, portfolio, x, seed)
+def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int,
+          deadline: float | None = None) -> Trial:
+    groups = plan(name, portfolio, x, seed, deadline)
     relvar = np.full(x.size, math.inf)
     reliable = np.zeros(x.size, dtype=bool)
     cost = 0.0
@@ -57,13 +59,14 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int) -> Trial:
     return Trial(name, groups, cost, reliable, relvar)
 
 
-def choose(portfolio: Portfolio, x: np.ndarray, seed: int) -> tuple[list[Trial], str]:
+def choose(portfolio: Portfolio, x: np.ndarray, seed: int,
+           deadline: float | None = None) -> tuple[list[Trial], str]:
     """Trials ordered best first, and the reason in words."""
     trials: list[Trial] = []
     refused: list[TailgaugeError] = []
     for name in candidates(portfolio):
         try:
-            trials.append(pilot(name, portfolio, x, seed))
+            trials.append(pilot(name, portfolio, x, seed, deadline))
         except (LimitError, MethodError) as exc:
             # A candidate that cannot serve this request leaves the choice to the others.
             refused.append(exc)

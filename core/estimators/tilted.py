@@ -199,7 +199,8 @@ class Tilted(Estimator):
     def candidate_rank(self, portfolio: Portfolio) -> int | None:
         return 0 if portfolio.is_light else None
 
-    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int) -> list[Group]:
+    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
+             deadline: float | None = None) -> list[Group]:
         return plan(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],

@@ -38,9 +38,14 @@ class Gamma(Severity):
 
     def _logsf_standard(self, u: _Floats) -> _Floats:
         a = self.shape
-        p, q = special.gammainc(a, u), special.gammaincc(a, u)
+        # One incomplete gamma per point: Q where it is small, P (through log1p) where Q is
+        # near 1, which keeps the digits of 1 - P; the two cost the same.
+        q = special.gammaincc(a, u)
         with np.errstate(divide="ignore"):
-            out = np.where(p < 0.5, np.log1p(-p), np.log(np.maximum(q, 1e-320)))
+            out = np.log(np.maximum(q, 1e-320))
+        near_one = q > 0.5
+        if near_one.any():
+            out[near_one] = np.log1p(-special.gammainc(a, u[near_one]))
         far = q < 1e-280  # gammaincc is about to underflow: continued fraction in log space
         if far.any():
             out[far] = _log_gamma_q_cf(a, u[far])

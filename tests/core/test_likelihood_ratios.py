@@ -19,6 +19,7 @@ from core.counts import Binomial, ClaimCount, NegativeBinomial, Poisson
 from core.estimators.conditional import Conditioning
 from core.estimators.conditional_is import DEFENSIVE, capped_family
 from core.estimators.mixture import TiltFamily
+from core.integrated_tail import IntegratedTail
 from core.portfolio import Line, Portfolio
 from core.sampling import LineProposal, StepwiseTilt, TiltGrid, draw_block, draw_claims
 from core.severities import Capped, Exponential, Gamma, Lognormal, Normal, Pareto, Severity
@@ -57,6 +58,9 @@ def claim_cases() -> list[tuple[str, Severity, Callable[[Severity], StepwiseTilt
          lambda s: StepwiseTilt.for_severity(s, 0.6)),
         ("pareto capped tilt", Pareto(alpha=2.5, scale=1.0),
          lambda s: StepwiseTilt(TiltGrid(s, 5.0, cells=64), 0.8)),
+        # drawn within cells by rejection (a decreasing density), not by inversion
+        ("integrated gamma tail capped tilt", IntegratedTail(base=Gamma(shape=3.0, scale=1.0)),
+         lambda s: StepwiseTilt(TiltGrid(s, 20.0), 0.3)),
     ]
 
 
@@ -162,4 +166,34 @@ def test_capped_tilt_mixture_of_conditional_is_reweights_to_the_size_biased_mode
     t = float(np.quantile(crude, 0.95))
     check_matches_crude(w * (draw.total > t), (crude > t).astype(float))
     # The defensive share caps the ratio at 1 / DEFENSIVE (Hesterberg 1995).
+    assert float(w.max()) <= 1.0 / DEFENSIVE * (1 + 1e-12)
+
+
+def test_big_claim_component_reweights_to_the_model_where_a_second_claim_is_large() -> None:
+    # conditional_is draws a share of its samples with one other claim from the tail above t
+    # (core.big_claim); its exact density ratio enters the balance-heuristic weight. Outside
+    # reference: for 10 fixed lognormal(0, 1) claims the 9 other claims are iid, so
+    # P(max of them > s) = 1 - F(s)^9 with F from scipy.stats.lognorm.
+    from scipy import stats
+
+    from core.counts import Fixed
+
+    port = Portfolio(lines=[Line(count=Fixed(n=10), severity=Lognormal(mu=0.0, sigma=1.0))])
+    cond = Conditioning(port)
+    x = 60.0
+    family = capped_family(cond, x)
+    assert family.big is not None and family.big.t < x / 2
+    theta = family.theta_for(x)
+    rng = np.random.default_rng(61)
+    j = cond.choose(N_PORTFOLIO, rng)
+    draw = family.draw([theta], N_PORTFOLIO, rng, j, defensive=DEFENSIVE)
+    w = np.exp(draw.log_lr)
+    check_unit_mean(w)
+    for s in (x / 3.0, x / 2.0, x):
+        truth = -math.expm1(9.0 * float(stats.lognorm(1.0).logcdf(s)))
+        m, se = mean_se(w * (draw.line_max[0] > s))
+        assert se > 0.0
+        assert abs(m - truth) <= K * se, (s, m, se, truth)
+        # The component makes the region common: far more hits than the model's own rate.
+        assert np.count_nonzero(draw.line_max[0] > s) > 10 * truth * N_PORTFOLIO
     assert float(w.max()) <= 1.0 / DEFENSIVE * (1 + 1e-12)

@@ -118,7 +118,8 @@ def bootstrap_tests(
 
     ``deadline`` (a ``time.monotonic()`` value): replicates stop there, and the p-values rest
     on those done; (1 + r) / (n + 1) is a valid p-value for any number n of replicates drawn
-    independently of their outcomes (the Monte Carlo test p-value; Davison and Hinkley 1997, ch. 4, from memory)."""
+    independently of their outcomes (the Monte Carlo test p-value; Davison and Hinkley 1997,
+    ch. 4, from memory)."""
     observed = statistics(transforms(severity, data), data.censored)
     m = min(data.n, max_claims)
     target = observed.scaled(data.n)

@@ -5,9 +5,10 @@ positive boundary-value coverage phase (each field at its limits, every enum mem
 optional field present and absent), then random fuzzing with valid and invalid data (the
 invalid side of the boundaries). The chart and fit routes skip the coverage phase: their bodies
 are the other routes' (already covered) plus a few query parameters, and the fit's coverage
-cases all refit the example's claims (seconds each). Bounded: about 1,100 cases. The seed is fixed and Hypothesis derandomized, so a run
-is the same run every time. Each answer must be no 5xx, carry a status code the document lists
-for the operation and a content type it lists, and conform to the documented schema.
+cases all refit the example's claims (seconds each). Bounded: about 1,100 cases. The seed is
+fixed and Hypothesis derandomized, so a run is the same run every time. Each answer must be
+no 5xx, carry a status code the document lists for the operation and a content type it lists,
+and conform to the documented schema.
 
 The app runs with small server limits so that every generated computation is cheap (a few
 thousand samples, a short time limit, few thresholds, lines and claims) and a data dir of its

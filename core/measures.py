@@ -24,12 +24,12 @@ from core.curves import (
     PILOT_SAMPLES,
     _Curves,
     _grid,
-    _invert,
     _layer_error,
     _layers,
     _losses,
     _measure,
     _var_error,
+    lattice_widened,
     layout_block,
     point_columns,
 )
@@ -38,7 +38,6 @@ from core.errors import MethodError
 from core.estimators import registry, select
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.exceedance import check_seed
-from core.intervals import Z95
 from core.invariants import check_tail
 from core.levels import Layer, check_levels, guess_var
 from core.portfolio import Portfolio
@@ -188,7 +187,7 @@ def tail_estimates(
         return degenerate.tail(q, layers, losses, seed, start)
     only_crude = _bounded_figures_of_infinite_mean(portfolio, q, layers, method)
     if only_crude:
-        method = "crude"
+        method = registry.model_itself()
     if (method != registry.AUTO and method in registry.names()
             and registry.get(method).deterministic):
         if portfolio.dependence is not None:
@@ -223,13 +222,13 @@ def _bounded_figures_of_infinite_mean(portfolio: Portfolio, q: np.ndarray,
     TVaR and unlimited layers are left to the estimators' own refusal (they do not exist)."""
     if math.isfinite(portfolio.mean) or q.size or any(ly.limit is None for ly in layers):
         return False
-    if method not in ("auto", "crude"):
+    if method not in (registry.AUTO, registry.model_itself()):
         raise MethodError(
             "method",
             f"{method} cannot estimate layers of a portfolio with an infinite mean claim (it "
             "differences two infinite stop-loss transforms); use crude or auto",
         )
-    return method == "auto"
+    return method == registry.AUTO
 
 
 def _extra_points(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:
@@ -270,10 +269,9 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
         g = a.size
         mean = np.asarray(curves.stats.mean(), dtype=float)
         se = np.asarray(curves.stats.std_error(), dtype=float)
-        bounds = (mean[-2 * g:-g] - Z95 * se[-2 * g:-g], mean[-g:] + Z95 * se[-g:])
         e_mean = mean[-(tail_cols + 2 * g):-2 * g]
         e_se = se[-(tail_cols + 2 * g):-2 * g]
-        measures = [with_contributions(_grid_widened(ms, a, bounds), a[idx], e_mean, e_se,
+        measures = [with_contributions(lattice_widened(curves, ms), a[idx], e_mean, e_se,
                                        portfolio) for ms in measures]
         std_dev = _dependent_std_dev(portfolio)
     else:
@@ -297,23 +295,6 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
         std_dev=std_dev, measures=measures, layers=layer_out,
         loss_exceedance=loss_out, warnings=warnings,
     )
-
-
-def _grid_widened(ms: MeasureEstimate, a: np.ndarray,
-                  bounds: tuple[np.ndarray, np.ndarray]) -> MeasureEstimate:
-    """The VaR interval widened to the lattice's lower law's lower band and upper law's upper
-    band (their crossings of 1 - q), so the grid error of the line quantiles is inside it."""
-    from dataclasses import replace
-
-    p = 1.0 - ms.level
-    low = _invert(a, np.maximum(bounds[0], 0.0), p)
-    high = _invert(a, bounds[1], p)
-    var = ms.var
-    new = Interval(value=var.value,
-                   ci_low=min(var.ci_low, low if low is not None else float(a[0])),
-                   ci_high=max(var.ci_high, high if high is not None else float(a[-1])),
-                   std_error=var.std_error)
-    return replace(ms, var=new)
 
 
 def _dependent_std_dev(portfolio: Portfolio) -> float:
@@ -379,7 +360,9 @@ def _run(name: str, portfolio: Portfolio, a: np.ndarray, q: np.ndarray, layers: 
     if portfolio.dependence is not None:
         values = _dependent_values(name, portfolio, points, anchors, seed,
                                    euler=euler_points(portfolio, g=a.size))
-        stream_name = f"dependent:{name}"
+        from core.dependence.engine import DEPENDENT, estimator
+
+        stream_name = estimator(name).stream_for(DEPENDENT)
     else:
         values = registry.get(name).contributions(portfolio, points, anchors, seed)
         stream_name = registry.get(name).stream

@@ -33,6 +33,9 @@ def _portfolio(request: PortfolioRequest, settings: Settings) -> core.Portfolio 
     model = translate.portfolio(request.portfolio)
     if isinstance(model, core.Portfolio):  # a credit book's cost is limited by its obligors
         limits.check_expected_claims(model, settings)
+    elif model.lines:  # and a mixed book's claim lines like any claim lines
+        limits.check_expected_claims(core.Portfolio(lines=[fl.line for fl in model.lines]),
+                                     settings)
     return model
 
 

@@ -113,7 +113,14 @@ def _line(spec: LineSpec, *path: str | int) -> core.Line:
 
 def portfolio(spec: PortfolioSpec) -> core.Portfolio | CreditModel:
     if credit_translate.has_obligors(spec):
-        return credit_translate.credit_model(spec)
+        return credit_translate.credit_model(
+            spec, lambda line, i: _line(line, "portfolio", "lines", i))
+    for i, line in enumerate(spec.lines):
+        if isinstance(line, LineSpec) and line.factor_loadings is not None:
+            raise ParameterError(("portfolio", "lines", i, "factor_loadings"),
+                                 "loadings on portfolio.factors apply to claim lines in a book "
+                                 "with lines of obligors; a claim portfolio couples its lines "
+                                 "with portfolio.dependence.correlation")
     lines = [_line(line, "portfolio", "lines", i) for i, line in enumerate(spec.lines)]
     dep = None
     if spec.dependence is not None:

@@ -3,10 +3,14 @@
 A claim line i of a book with obligor groups loads on the same systematic factors Z: its
 latent variable is Y_i = b_i . Z + sqrt(1 - b_i' R b_i) e_i (e_i standard normal, independent
 of everything else), divided by sqrt(W / df) under the student_t copula like every obligor's,
-and its period loss is S_i = F_i^{-1}(U_i) with U_i = Phi(Y_i) (t_df(Y_i) for student_t):
+and its period loss is S_i = F_i^{-1}(U_i) with U_i = Phi(-Y_i) (t_df(-Y_i) for student_t):
 each line keeps its own compound law as marginal (Sklar), and the factors couple it to the
-defaults. F_i^{-1} comes from the deterministic lattice (core.dependence.marginals): lower and
-upper quantiles bound the grid error sample by sample, and both are carried to the figures.
+defaults. Like an obligor's, a line's latent variable is adverse when low (an obligor
+defaults when its latent is low, a line loses most then), so loadings of the same sign make
+defaults and claims rise together, and the correlation b_i' R b_j of two latent variables is
+the sign of the dependence of their losses (the contract's reading of factor_loadings).
+F_i^{-1} comes from the deterministic lattice (core.dependence.marginals): lower and upper
+quantiles bound the grid error sample by sample, and both are carried to the figures.
 
 The lines' idiosyncratic normals are drawn after everything else in a block, so a book
 without lines draws exactly what it drew before.
@@ -81,7 +85,8 @@ class LineSet:
         y = x @ self.loadings_x.T + e * self.residual_sd[None, :]
         if w is not None:
             y = y / np.sqrt(w / float(self.df or 1.0))[:, None]
-        ubar = special.ndtr(-y) if w is None else special.stdtr(float(self.df or 1.0), -y)
+        # 1 - U = P(latent' < Y) = Phi(Y): the upper-tail uniform is small when Y is low.
+        ubar = special.ndtr(y) if w is None else special.stdtr(float(self.df or 1.0), y)
         lo, hi = np.empty_like(y), np.empty_like(y)
         for i, q in enumerate(self.quantiles):
             lo[:, i], hi[:, i] = q.bounds(np.asarray(ubar[:, i], dtype=float))
@@ -90,14 +95,26 @@ class LineSet:
 
     def design_point(self, i: int, target: float) -> tuple[FloatArray, float]:
         """(factor shift, own-normal shift) of the most likely way line i alone reaches
-        `target` (gaussian latent scale): Y_i = b . X + s e at the level y* = F_i^{-1}-side
-        normal quantile, whose nearest point to 0 is y* (b, s) as |b|^2 + s^2 = 1."""
+        `target` (gaussian latent scale): Y_i = b . X + s e at the level -y*, y* the normal
+        quantile of the line's tail at the target, whose nearest point to 0 is -y* (b, s) as
+        |b|^2 + s^2 = 1."""
         ubar = self._tail(i, target)
         y = float(-special.ndtri(ubar)) if 0.0 < ubar < 1.0 else 0.0
         if self.df is not None and 0.0 < ubar < 1.0:
             y = float(-special.stdtrit(self.df, ubar))
-        y = max(y, 0.0)
-        return y * self.loadings_x[i], y * float(self.residual_sd[i])
+        y = max(y, 0.0)  # the line's loss is large where its latent is at -y
+        return -y * self.loadings_x[i], -y * float(self.residual_sd[i])
+
+    def remaining_shift(self, i: int, mu: FloatArray, delta: float, factors: FloatArray
+                        ) -> float:
+        """The own-normal shift that, with the factors at `factors`, puts line i's latent at
+        the level of its design point (mu, delta); none when the factors already reach it."""
+        s = float(self.residual_sd[i])
+        b = self.loadings_x[i]
+        level = float(mu @ b) + s * delta  # = -y*, the design point's latent level
+        if s <= 0.0:
+            return 0.0
+        return min(0.0, (level - float(factors @ b)) / s)
 
     def _tail(self, i: int, target: float) -> float:
         """The share of upper-tail uniforms whose lower quantile exceeds `target` (the lower

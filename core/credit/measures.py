@@ -24,7 +24,15 @@ import numpy as np
 from scipy import stats
 
 from core.credit.draws import Component, Sampler
-from core.credit.estimators import DEFENSIVE, block_size, component, line_components, work
+from core.credit.estimators import (
+    CREDIT,
+    DEFENSIVE,
+    block_size,
+    component,
+    estimator,
+    line_components,
+    work,
+)
 from core.credit.exceedance import check_method, choose
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
@@ -38,10 +46,12 @@ from core.curves import (
     _losses,
     _measure,
     _var_error,
+    lattice_widened,
     layout_block,
     point_columns,
 )
 from core.diagnostics import ContributionStats
+from core.estimators import registry
 from core.estimators.base import BlockFn, Group
 from core.exceedance import check_seed
 from core.functionals import spread_out
@@ -51,6 +61,11 @@ from core.levels import Layer, check_levels
 from core.precision import GroupRun, Precision, run_group
 from core.results import Contribution, Interval, MeasureEstimate, TailResult
 from core.streams import Purpose, Stream
+
+
+def _stream(purpose: Purpose, name: str) -> Stream:
+    """The method's random stream for this purpose (its registry entry names it)."""
+    return Stream(purpose, estimator(name).stream_for(CREDIT))
 
 
 def guess_var(model: CreditModel, q: float) -> float:
@@ -78,18 +93,25 @@ def guess_var(model: CreditModel, q: float) -> float:
     return credit + sum(float(lq.bounds(ubar)[0][0]) for lq in lines.quantiles)
 
 
-def _values(sampler: Sampler, points: np.ndarray) -> BlockFn:
+def _values(sampler: Sampler, points: np.ndarray, grid: int = 0) -> BlockFn:
+    """[exceedance | stop loss] at the points; with claim lines and grid > 0 then the
+    exceedance of the lower and upper lattice losses at the first `grid` points (the bounds
+    of the lines' grid error, kept last by layout_block)."""
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         d = sampler.draw(m, rng)
         lr = np.exp(d.log_lr)[:, None]
         over = d.total[:, None] - points[None, :]
-        return np.hstack([(over > 0) * lr, np.maximum(over, 0.0) * lr])
+        cols = [(over > 0) * lr, np.maximum(over, 0.0) * lr]
+        if grid and d.total_lo is not None and d.total_hi is not None:
+            a = points[None, :grid]
+            cols += [(d.total_lo[:, None] > a) * lr, (d.total_hi[:, None] > a) * lr]
+        return np.hstack(cols)
 
     return values
 
 
 def _sampler(model: CreditModel, name: str, anchors: Sequence[float]) -> Sampler:
-    if name == "crude":
+    if not estimator(name).proposal:
         return Sampler(model, [], 1.0)
     top = model.max_loss
     comps: list[Component] = []
@@ -105,7 +127,7 @@ def _pilot_vars(model: CreditModel, name: str, q: np.ndarray, seed: int) -> list
     a = np.geomspace(max(min(guesses) / 20.0, 1e-9), min(max(guesses) * 20.0, top), 160)
     sampler = _sampler(model, name, [min(g, 0.999 * top) for g in guesses])
     stats_ = ContributionStats.from_samples(
-        _values(sampler, a)(PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, name).rng(seed, 0)))
+        _values(sampler, a)(PILOT_SAMPLES, _stream(Purpose.MEASURE_PILOT, name).rng(seed, 0)))
     curves = _Curves(a, stats_)
     out = []
     for level, guess in zip(q, guesses, strict=True):
@@ -125,7 +147,7 @@ def credit_tail(
     method = check_method(method)
     q = check_levels(levels) if len(levels) else np.zeros(0)
     extra = [x for x in point_columns(layers, losses) if x > 0]
-    if method == "auto":
+    if method == registry.AUTO:
         probe = [guess_var(model, float(v)) for v in q] + extra
         names, reason = choose(model, np.asarray(probe or [model.mean]), seed)
         name = names[0]
@@ -146,6 +168,8 @@ def credit_tail(
             warnings.append(f"VaR interval at levels {missing} runs past the estimation grid; "
                             "increase samples")
     measures = [_snap(model, curves, _measure(curves, float(level))) for level in q]
+    if model.lines:
+        measures = [lattice_widened(curves, ms) for ms in measures]
     if measures:
         measures = _with_contributions(model, name, measures, anchors, precision, seed, start)
     if run.stopped_by == "time_limit":
@@ -173,13 +197,13 @@ def _run(model: CreditModel, name: str, a: np.ndarray, q: np.ndarray,
          precision: Precision, seed: int, start: float) -> tuple[_Curves, GroupRun]:
     extra = point_columns(layers, losses)
     points = np.concatenate([a, np.asarray(extra, dtype=float)])
-    block = layout_block(_values(_sampler(model, name, anchors), points), a.size, layers,
-                         losses)
+    block = layout_block(_values(_sampler(model, name, anchors), points,
+                                 a.size if model.lines else 0), a.size, layers, losses)
     group = Group((0,), block, work(model, name, len(spread_out(anchors))), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     error_of = _var_error(q, a) if q.size else _layer_error(a.size)
     run = run_group(group, block_size(model), precision, seed,
-                    Stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
+                    _stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
     return _Curves(a, run.stats), run
 
 
@@ -242,7 +266,7 @@ def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEst
     fixed = Precision(samples=precision.samples or precision.minimum,
                       time_limit_s=precision.time_limit_s)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    run = run_group(group, block_size(model), fixed, seed, Stream(Purpose.EULER, name),
+    run = run_group(group, block_size(model), fixed, seed, _stream(Purpose.EULER, name),
                     deadline)
     mean = np.asarray(run.stats.mean(), dtype=float).reshape(nv, 2 * gs + 1)
     var = (np.asarray(run.stats.std_error(), dtype=float) ** 2 * run.stats.n).reshape(

@@ -104,9 +104,14 @@ class Severity(abc.ABC):
         closed_below: bool = False,
     ) -> Any:
         flat, shape, scalar = _as_floats(x)
-        out = np.full(flat.shape, np.nan)  # NaN in, NaN out
         lo, hi = self.support_min, self.support_max
         inside = ((flat >= lo) if closed_below else (flat > lo)) & (flat < hi) & np.isfinite(flat)
+        if inside.all():
+            # The common case inside the sampler: no fills, no masked copies.
+            with np.errstate(divide="ignore", invalid="ignore"):
+                values = np.asarray(formula(flat), dtype=np.float64)
+            return _finish(values, shape, scalar)
+        out = np.full(flat.shape, np.nan)  # NaN in, NaN out
         _fill(out, (flat <= lo) & ~inside, flat, below)
         _fill(out, flat >= hi, flat, above)
         if inside.any():

@@ -11,6 +11,7 @@ derivative of TVaR in VaR vanishes at the true VaR).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 from collections.abc import Sequence
@@ -185,6 +186,10 @@ def tail_estimates(
     q = check_levels(levels) if len(levels) else np.zeros(0)
     if degenerate.surely_zero(portfolio):
         return degenerate.tail(q, layers, losses, seed, start)
+    p0 = degenerate.no_loss_probability(portfolio)
+    if p0 is not None and q.size and np.any(q <= p0):
+        return _with_atom_levels(portfolio, q, q <= p0, layers=layers, losses=losses,
+                                 method=method, precision=precision, seed=seed)
     only_crude = _bounded_figures_of_infinite_mean(portfolio, q, layers, method)
     if only_crude:
         method = registry.model_itself()
@@ -212,6 +217,19 @@ def tail_estimates(
             return result
     assert first is not None
     return first
+
+
+def _with_atom_levels(portfolio: Portfolio, q: np.ndarray, at_zero: np.ndarray, *,
+                      layers: Sequence[Layer], losses: Sequence[float], method: str,
+                      precision: Precision, seed: int) -> TailResult:
+    """The levels at or below P(S = 0) answered exactly (VaR 0), the others estimated: a
+    grid of positive losses cannot hold a VaR of 0, and its edge is no answer."""
+    rest = tail_estimates(portfolio, levels=q[~at_zero].tolist(), layers=layers,
+                          losses=losses, method=method, precision=precision, seed=seed)
+    sampled = iter(rest.measures)
+    measures = [degenerate.below_the_atom(float(level), portfolio.mean) if zero
+                else next(sampled) for level, zero in zip(q, at_zero, strict=True)]
+    return dataclasses.replace(rest, measures=measures)
 
 
 def _bounded_figures_of_infinite_mean(portfolio: Portfolio, q: np.ndarray,

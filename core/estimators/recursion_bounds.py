@@ -12,7 +12,12 @@ from core.estimators.estimator import Estimator, RuinRegime
 from core.levels import Layer
 from core.portfolio import Portfolio
 from core.precision import Precision
-from core.recursion import RECURSION_CELLS, RECURSION_MAX_CELLS, exceedance_bounds
+from core.recursion import (
+    RECURSION_MAX_CELLS,
+    exceedance_bounds,
+    exceedance_points,
+    refine_cells,
+)
 from core.recursion_measures import tail_bounds
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult, TailResult
 
@@ -20,18 +25,26 @@ from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult, Tail
 def exceedance_result(
     portfolio: Portfolio, x: np.ndarray, precision: Precision, seed: int, start: float
 ) -> ExceedanceResult:
-    """Deterministic bounds (core.recursion): the grid doubles until the bounds' relative
-    width meets precision.relative_error (or the cell limit), else one default grid."""
+    """Deterministic bounds (core.recursion): the grid is refined (core.recursion.refine_cells)
+    until the bounds' relative width meets precision.relative_error, the cell limit or the
+    time limit, else one default grid; the point estimates are computed on the last grid."""
     target = precision.relative_error
-    cells = RECURSION_CELLS
-    while True:
-        bounds = exceedance_bounds(portfolio, x.tolist(), cells=cells,
-                                   max_cells=RECURSION_MAX_CELLS)
-        width = max((hi - lo) / 2 / pt if pt > 0 else 0.0 for lo, hi, pt in bounds)
-        if target is None or width <= target or 2 * cells > RECURSION_MAX_CELLS:
-            break
-        cells *= 2
-    stopped = "relative_error" if target is not None and width <= target else "samples"
+    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+
+    def compute(cells: int) -> list[tuple[float, float, float]]:
+        return exceedance_bounds(portfolio, x.tolist(), cells=cells,
+                                 max_cells=RECURSION_MAX_CELLS, points=False)
+
+    def width_of(bounds: list[tuple[float, float, float]]) -> float:
+        return max(((hi - lo) / (hi + lo) if hi + lo > 0 else 0.0) for lo, hi, _ in bounds)
+
+    # The three point lattices (spans h, 2h, 4h) cost about 2/3 of the two bound lattices.
+    bounds, cells, stopped, width = refine_cells(compute, width_of, target, deadline,
+                                                 finish_cost=0.7)
+    bounds = exceedance_points(portfolio, x.tolist(), bounds, cells)
+    width = max((hi - lo) / 2 / pt if pt > 0 else 0.0 for lo, hi, pt in bounds)
+    if stopped == "relative_error" and target is not None and width > target:
+        stopped = "samples"
     estimates = []
     for xi, (lo, hi, pt) in zip(x, bounds, strict=True):
         half = (hi - lo) / 2
@@ -42,8 +55,10 @@ def exceedance_result(
             hits=0, diagnostics=diag, method="recursion"))
     warnings = []
     if target is not None and width > target:
-        warnings.append(f"recursion bounds are {width:.3g} wide (relative half-width) at the "
-                        f"cell limit {RECURSION_MAX_CELLS}, above the target {target:g}")
+        where = ("a finer grid would not finish within the time limit" if stopped == "time_limit"
+                 else f"the cell limit is {RECURSION_MAX_CELLS}")
+        warnings.append(f"recursion bounds are {width:.3g} wide (relative half-width) on "
+                        f"{cells} cells, above the target {target:g}: {where}")
     return ExceedanceResult(
         method="recursion", method_reason="deterministic lower and upper bounds requested",
         seed=seed, elapsed_s=time.monotonic() - start, stopped_by=stopped,

@@ -19,7 +19,7 @@ import numpy as np
 
 from core.discretise import Grid, Lattice
 from core.errors import LimitError, MethodError
-from core.levels import Layer, guess_var
+from core.levels import Layer, guess_var, largest_claim_var
 from core.portfolio import Portfolio
 from core.recursion import aggregate
 from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
@@ -77,39 +77,6 @@ def _rounded_means(portfolio: Portfolio, h: float, cells: int) -> tuple[float, f
     return low, up
 
 
-def _largest_claim_var(portfolio: Portfolio, q: float) -> float:
-    """A lower bound of VaR_q from the largest claim alone: claims are >= 0, so S >= M and
-    P(S > v) >= P(M > v) = 1 - prod_j pgf_j(F_j(v)); every v with P(M > v) > 1 - q lies below
-    VaR_q. Bisection for the largest such v (0 when there is none). On a lattice far coarser
-    than the claims (a heavy tail on a wide grid) this is what keeps the VaR bound, and so the
-    point, off 0: the single-loss approximation is a rigorous lower bound."""
-    lines = portfolio.lines
-
-    def p_max(v: float) -> float:
-        log_none = 0.0
-        for line in lines:
-            log_none += math.log(max(float(line.paid_count.pgf(float(line.paid_severity.cdf(v)))),
-                                     1e-300))
-        return -math.expm1(log_none)
-
-    tail = 1.0 - q
-    if p_max(0.0) <= tail:
-        return 0.0
-    # union bound: P(M > v) <= sum_j E[N_j] sf_j(v), so hi has P(M > hi) <= 1 - q
-    hi = max(float(ln.paid_severity.isf(min(1.0, tail / (len(lines) * max(ln.paid_count.mean,
-                                                                           1e-300)))))
-             for ln in lines)
-    if not math.isfinite(hi) or p_max(hi) > tail:
-        return 0.0
-    lo = 0.0
-    for _ in range(200):
-        mid = 0.5 * (lo + hi)
-        if mid <= lo or mid >= hi:
-            break
-        lo, hi = (mid, hi) if p_max(mid) > tail else (lo, mid)
-    return lo
-
-
 def tail_bounds(
     portfolio: Portfolio, *, levels: Sequence[float] = (), layers: Sequence[Layer] = (),
     losses: Sequence[float] = (), cells: int = DEFAULT_CELLS, seed: int = 0,
@@ -142,7 +109,7 @@ def tail_bounds(
         v_lo, v_up, v_pt = _var(low, h, q), _var(up, h, q), _var(near, h, q)
         es_lo = v_lo + _stop_loss(low, h, v_lo, mean_low) / (1.0 - q)
         # TVaR(S) >= TVaR(S rounded down) above; VaR(S) also >= the largest claim's bound
-        v_lo = min(max(v_lo, _largest_claim_var(portfolio, q)), v_up)
+        v_lo = min(max(v_lo, largest_claim_var(portfolio, q)), v_up)
         es_lo = max(es_lo, v_lo)
         v_pt = min(max(v_pt, v_lo), v_up)
         es_up = v_up + _stop_loss(up, h, v_up, mean_up) / (1.0 - q)

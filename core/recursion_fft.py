@@ -24,8 +24,9 @@ wrap-around and round-off, both bounded here and put into the bounds:
 
 So lower = (1 - P(E_down)) + T_down - A - slack and upper = (1 - P(E_up)) + T_up + A + slack,
 where T is the sum of the transform's entries above x. Claims rounded down are the ones
-rounded up moved one cell lower, so one set of cell masses serves both. The slack is absolute (~1e-12 at 1e6
-cells for 100 claims), so the path is used only where it is well below the target width.
+rounded up moved one cell lower, so one set of cell masses serves both. The slack is
+absolute (~1e-12 at 1e6 cells for 100 claims): where it is a large part of the target width,
+no finer grid is tried.
 """
 
 from __future__ import annotations

@@ -73,7 +73,8 @@ def _by_transform(portfolio: Portfolio, x: np.ndarray, target: float | None,
     None when the transform does not apply (then direct sums serve the whole request)."""
     if target is None or not fft_eligible(portfolio):
         return None
-    out, most, stops = [], 0, []
+    out: _Bounds = []
+    most, stops = 0, list[str]()
     for xi in x.tolist():
         if xi <= 0:
             return None

@@ -21,8 +21,8 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from service import charts
-from service.kinds import KINDS
 from service.report import build_report
+from service.resources import KINDS
 from service.schemas.runs import RunBatchIn, RunItemDone, RunOut
 from service.settings import DEFAULT_EXAMPLES_DIR, Settings
 from service.worker import run_locally

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
+from dataclasses import replace
 from functools import cached_property
 
 import numpy as np
@@ -199,3 +200,25 @@ def _losses(curves: _Curves, n_layers: int, losses: Sequence[float]) -> list[Int
     return [_interval(float(curves.extra[base + i]), float(curves.extra_se[base + i]),
                       curves.stats.n)
             for i in range(len(losses))]
+
+
+def lattice_widened(curves: _Curves, ms: MeasureEstimate) -> MeasureEstimate:
+    """The VaR interval widened to the lower lattice loss's lower band and the upper one's
+    upper band (their crossings of 1 - q), so the grid error of the line quantiles is inside
+    it. The exceedance of the lower and upper lattice losses at the grid points are the last
+    2 g columns of the block (layout_block keeps them last); used for dependent lines
+    (core.measures) and for the claim lines of a mixed credit book (core.credit.measures)."""
+    a = curves.a
+    g = a.size
+    mean = np.asarray(curves.stats.mean(), dtype=float)
+    se = np.asarray(curves.stats.std_error(), dtype=float)
+    lower = np.maximum(mean[-2 * g:-g] - Z95 * se[-2 * g:-g], 0.0)
+    upper = mean[-g:] + Z95 * se[-g:]
+    p = 1.0 - ms.level
+    low, high = _invert(a, lower, p), _invert(a, upper, p)
+    var = ms.var
+    new = Interval(value=var.value,
+                   ci_low=min(var.ci_low, low if low is not None else float(a[0])),
+                   ci_high=max(var.ci_high, high if high is not None else float(a[-1])),
+                   std_error=var.std_error)
+    return replace(ms, var=new)

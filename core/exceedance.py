@@ -8,8 +8,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from core import degenerate
 from core.estimators import registry, select
-from core.estimators.base import Group
 from core.invariants import check_monotone, check_probability
 from core.portfolio import Portfolio
 
@@ -34,23 +34,26 @@ __all__ = ["METHODS", "check_seed", "check_thresholds", "draw_seed", "exceedance
 
 
 def _run(
-    groups: list[Group], x: np.ndarray, name: str, portfolio: Portfolio, precision: Precision,
+    trial: select.Trial, x: np.ndarray, portfolio: Portfolio, precision: Precision,
     seed: int, deadline: float | None, only: set[int] | None = None,
 ) -> tuple[dict[int, ExceedanceEstimate], list[str]]:
     out: dict[int, ExceedanceEstimate] = {}
     stops: list[str] = []
     block = block_size(portfolio)
+    name, groups = trial.name, trial.groups
     todo = [gid for gid, group in enumerate(groups)
             if only is None or only.intersection(group.indices)]
     for k, gid in enumerate(todo):
         group, left = groups[gid], len(todo) - k
-        # Each method has its own streams so a fallback never reuses the first one's draws.
+        # Each method has its own streams so a fallback never reuses the first one's draws;
+        # auto's pilot drew the first blocks of this same stream (select.pilot).
         stream = Stream(Purpose.SAMPLES, registry.get(name).stream, (gid,))
+        begun = None if trial.begun is None else trial.begun[gid]
         # Under a time limit each sample set gets an equal share of what is left, so the
         # first threshold cannot use up the time of the others.
-        share = None if deadline is None else (
-            time.monotonic() + max(deadline - time.monotonic(), 0.0) / left)
-        run: GroupRun = run_group(group, block, precision, seed, stream, share)
+        now = time.monotonic()
+        share = None if deadline is None else now + max(deadline - now, 0.0) / left
+        run: GroupRun = run_group(group, block, precision, seed, stream, share, begun=begun)
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(group.indices):
@@ -82,9 +85,14 @@ def exceedance(
         from core.dependence.exceed import dependent_exceedance
 
         return dependent_exceedance(portfolio, x, method, precision, seed, start)
+    if method != registry.AUTO:
+        registry.get(method)  # an unknown method is refused even when the answer is known
+    if degenerate.surely_zero(portfolio):
+        return degenerate.exceedance(x, seed, start)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     if method == registry.AUTO:
-        trials, reason = select.choose(portfolio, x, seed, deadline)
+        trials, reason = select.choose(portfolio, x, seed, samples=precision.minimum,
+                                       deadline=deadline)
     else:
         chosen = registry.get(method)
         if chosen.deterministic:
@@ -93,7 +101,7 @@ def exceedance(
         trials, reason = [select.Trial(method, groups, 0.0, np.ones(x.size, bool),
                                        np.zeros(x.size))], f"{method} requested"
     best = trials[0]
-    found, stops = _run(best.groups, x, best.name, portfolio, precision, seed, deadline)
+    found, stops = _run(best, x, portfolio, precision, seed, deadline)
     if method == "auto":
         tried: dict[int, list[str]] = {}
         for trial in trials[1:]:
@@ -111,8 +119,8 @@ def exceedance(
                 continue
             if deadline is not None and time.monotonic() > deadline:
                 break
-            more, more_stops = _run(trial.groups, x, trial.name, portfolio, precision, seed,
-                                    deadline, only=retry)
+            more, more_stops = _run(trial, x, portfolio, precision, seed, deadline,
+                                    only=retry)
             for i in retry:
                 tried.setdefault(i, [best.name]).append(trial.name)
                 if i in more and more[i].diagnostics.reliable:

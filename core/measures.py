@@ -18,17 +18,18 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from core import degenerate
 from core.curves import (
     GRID,
     PILOT_SAMPLES,
     _Curves,
     _grid,
-    _invert,
     _layer_error,
     _layers,
     _losses,
     _measure,
     _var_error,
+    lattice_widened,
     layout_block,
     point_columns,
 )
@@ -37,7 +38,6 @@ from core.errors import MethodError
 from core.estimators import registry, select
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.exceedance import check_seed
-from core.intervals import Z95
 from core.invariants import check_tail
 from core.levels import Layer, check_levels, guess_var, largest_claim_var
 from core.portfolio import Portfolio
@@ -183,6 +183,11 @@ def tail_estimates(
     seed = check_seed(seed)
     precision = precision or Precision()
     q = check_levels(levels) if len(levels) else np.zeros(0)
+    if degenerate.surely_zero(portfolio):
+        return degenerate.tail(q, layers, losses, seed, start)
+    only_crude = _bounded_figures_of_infinite_mean(portfolio, q, layers, method)
+    if only_crude:
+        method = "crude"
     if (method != registry.AUTO and method in registry.names()
             and registry.get(method).deterministic):
         if portfolio.dependence is not None:
@@ -192,6 +197,9 @@ def tail_estimates(
         return registry.get(method).tail_bounds(portfolio, levels=list(q), layers=layers,
                                                 losses=losses, seed=seed)
     names, reason = _choose(portfolio, q, _extra_points(layers, losses), method, seed)
+    if only_crude:
+        reason = ("automatic choice: a line has an infinite mean claim; only crude estimates "
+                  "limited layers and loss probabilities of such a portfolio")
     first: TailResult | None = None
     for name in names:
         result = _estimate(name, portfolio, q, layers, losses, precision, seed, start, reason)
@@ -204,6 +212,23 @@ def tail_estimates(
             return result
     assert first is not None
     return first
+
+
+def _bounded_figures_of_infinite_mean(portfolio: Portfolio, q: np.ndarray,
+                                      layers: Sequence[Layer], method: str) -> bool:
+    """Whether auto must use crude: limited layers and loss probabilities exist whatever the
+    mean, but the other estimators build a layer from two stop-loss transforms, which are
+    infinite when a line's mean claim is. An explicit other method is refused at `method`;
+    TVaR and unlimited layers are left to the estimators' own refusal (they do not exist)."""
+    if math.isfinite(portfolio.mean) or q.size or any(ly.limit is None for ly in layers):
+        return False
+    if method not in ("auto", "crude"):
+        raise MethodError(
+            "method",
+            f"{method} cannot estimate layers of a portfolio with an infinite mean claim (it "
+            "differences two infinite stop-loss transforms); use crude or auto",
+        )
+    return method == "auto"
 
 
 def _extra_points(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:
@@ -244,11 +269,13 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
         g = a.size
         mean = np.asarray(curves.stats.mean(), dtype=float)
         se = np.asarray(curves.stats.std_error(), dtype=float)
-        bounds = (mean[-2 * g:-g] - Z95 * se[-2 * g:-g], mean[-g:] + Z95 * se[-g:])
         e_mean = mean[-(tail_cols + 2 * g):-2 * g]
         e_se = se[-(tail_cols + 2 * g):-2 * g]
-        measures = [with_contributions(_grid_widened(ms, a, bounds), a[idx], e_mean, e_se,
+        measures = [with_contributions(lattice_widened(curves, ms), a[idx], e_mean, e_se,
                                        portfolio) for ms in measures]
+        std_dev = _dependent_std_dev(portfolio)
+    else:
+        std_dev = portfolio.std_dev
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
     floors = [largest_claim_var(portfolio, float(level)) for level in q]
@@ -266,26 +293,17 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
     return TailResult(
         method=name, method_reason=reason, seed=seed, elapsed_s=time.monotonic() - start,
         stopped_by=run.stopped_by, samples=run.samples, mean=portfolio.mean,
-        std_dev=portfolio.std_dev, measures=measures, layers=layer_out,
+        std_dev=std_dev, measures=measures, layers=layer_out,
         loss_exceedance=loss_out, warnings=warnings,
     )
 
 
-def _grid_widened(ms: MeasureEstimate, a: np.ndarray,
-                  bounds: tuple[np.ndarray, np.ndarray]) -> MeasureEstimate:
-    """The VaR interval widened to the lattice's lower law's lower band and upper law's upper
-    band (their crossings of 1 - q), so the grid error of the line quantiles is inside it."""
-    from dataclasses import replace
+def _dependent_std_dev(portfolio: Portfolio) -> float:
+    """sqrt(Var S) under the copula (the independent formula would ignore the correlation)."""
+    from core.dependence.exceed import MEASURE_TAIL, dependent_moments
+    from core.dependence.marginals import line_quantiles
 
-    p = 1.0 - ms.level
-    low = _invert(a, np.maximum(bounds[0], 0.0), p)
-    high = _invert(a, bounds[1], p)
-    var = ms.var
-    new = Interval(value=var.value,
-                   ci_low=min(var.ci_low, low if low is not None else float(a[0])),
-                   ci_high=max(var.ci_high, high if high is not None else float(a[-1])),
-                   std_error=var.std_error)
-    return replace(ms, var=new)
+    return dependent_moments(portfolio, line_quantiles(portfolio, MEASURE_TAIL))[1]
 
 
 def euler_points(portfolio: Portfolio, *, g: int) -> np.ndarray:
@@ -299,10 +317,11 @@ def _dependent_values(name: str, portfolio: Portfolio, points: np.ndarray,
                       anchors: Sequence[float], seed: int, *, euler: np.ndarray) -> BlockFn:
     """[exceedance | stop-loss | Euler terms] of a dependent portfolio's estimator."""
     from core.dependence import engine
+    from core.dependence.exceed import MEASURE_TAIL
 
     n_pts = points.size
     fn = engine.values(name, portfolio, points, anchors, euler, seed,
-                       smallest_tail=1e-9)
+                       smallest_tail=MEASURE_TAIL)
     width = 2 * n_pts + euler.size * len(portfolio.lines)
 
     def block(m: int, rng: np.random.Generator) -> np.ndarray:

@@ -67,6 +67,19 @@ class GroupRun:
     stats: ContributionStats
     samples: int
     stopped_by: str
+    next_block: int = 0  # the block a continuation of this run starts at
+
+
+def draw_blocks(group: Group, stream: Stream, seed: int, total: int, block: int, start: int = 0
+                ) -> GroupRun:
+    """`total` samples of a group in the blocks of the plan from block `start` on, as
+    run_group draws them; a run continued from it gives what one longer run would (a pilot
+    that counts towards the estimate)."""
+    parts = [ContributionStats.from_samples(group.block_values(m, stream.rng(seed, b)),
+                                            top_k=TOP_K, chunk=b)
+             for b, m in blocks(total, block, start=start)]
+    return GroupRun(ContributionStats.combine(parts), total, "samples",
+                    start + math.ceil(total / block))
 
 
 def _worst_relative_error(stats: ContributionStats) -> float:
@@ -81,11 +94,16 @@ def run_group(
     group: Group, block: int, precision: Precision, seed: int, stream: Stream,
     deadline: float | None,
     error_of: Callable[[ContributionStats], float] = _worst_relative_error,
+    begun: GroupRun | None = None,
 ) -> GroupRun:
     """Draw blocks of one group until its stopping rule fires; `error_of` gives the figure
-    the relative-error target applies to (by default the worst estimate's)."""
+    the relative-error target applies to (by default the worst estimate's). `begun`: samples
+    already drawn on this stream (auto's pilot, core.estimators.select), continued here."""
     parts: list[ContributionStats] = []
     done, next_check, index = 0, precision.minimum, 0
+    if begun is not None:
+        parts, done, index = [begun.stats], begun.samples, begun.next_block
+        next_check = max(next_check, done)
     cap = precision.cap
     target = precision.relative_error
     while True:
@@ -99,16 +117,16 @@ def run_group(
             parts.append(ContributionStats.from_samples(values, top_k=TOP_K, chunk=b))
             done, index = done + m, b + 1
             if deadline is not None and time.monotonic() > deadline:
-                return GroupRun(ContributionStats.combine(parts), done, "time_limit")
+                return GroupRun(ContributionStats.combine(parts), done, "time_limit", index)
         stats = ContributionStats.combine(parts)
         parts = [stats]
         if target is None:
-            return GroupRun(stats, done, "samples")
+            return GroupRun(stats, done, "samples", index)
         worst = error_of(stats)
         if worst <= target:
-            return GroupRun(stats, done, "relative_error")
+            return GroupRun(stats, done, "relative_error", index)
         if done >= cap:
-            return GroupRun(stats, done, "max_samples")
+            return GroupRun(stats, done, "max_samples", index)
         # Aim at the count the current error predicts, growing at most fourfold per round.
         want = done * min(4.0, max(1.25, 1.1 * (worst / target) ** 2)) if math.isfinite(
             worst) else 4.0 * done

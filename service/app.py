@@ -13,7 +13,7 @@ from fastapi import Depends, FastAPI
 from service.auth import AUTH_RESPONSES, AuthConfig, AuthConfigError, authenticate, load_auth
 from service.body_limit import BodyLimitMiddleware
 from service.datadir import DataDirError
-from service.errors import install_error_handlers
+from service.errors import InternalErrorMiddleware, install_error_handlers
 from service.examples import load_examples
 from service.executor import ComputePool
 from service.metrics import Metrics, MetricsMiddleware, route_templates
@@ -31,6 +31,7 @@ from service.routes import (
     runs,
     ui,
 )
+from service.routes.responses import INTERNAL_ERROR
 from service.schemas.exceedance import ExceedanceRequest
 from service.schemas.fit import FitRequest
 from service.schemas.layers import LayersRequest
@@ -49,6 +50,12 @@ the stated model only (plus its parameter uncertainty where a line carries
 `parameter_uncertainty`; the choice of family is never covered). Results are estimates for
 that model, not advice. Capital and reserving figures follow the local regulator's rules and
 need a qualified actuary's sign-off.
+
+**Errors.** Every error body is `{"detail": [{"loc": [...], "msg": ..., "type": ...}]}`, whatever
+the status: the ones each operation lists below, and 404 (`not_found`, a path the API does not
+have) and 405 (`method_not_allowed`, with an `Allow` header) for requests outside it. A body that
+is not JSON (invalid UTF-8, an integer literal of thousands of digits, nesting too deep) is a 422
+`json_invalid`.
 """
 
 
@@ -95,7 +102,7 @@ def create_app(settings: Settings | None = None, *, exit_on_start_failure: bool 
     # docs_url / redoc_url None: FastAPI's pages load their assets from a CDN; ours are served
     # by the app (service/routes/docs.py).
     app = FastAPI(title="tailgauge", version="1", description=DESCRIPTION, lifespan=lifespan,
-                  docs_url=None, redoc_url=None)
+                  docs_url=None, redoc_url=None, responses=INTERNAL_ERROR)
     app.state.settings = settings
     app.state.metrics = instruments
     app.state.pool = pool
@@ -131,7 +138,9 @@ def create_app(settings: Settings | None = None, *, exit_on_start_failure: bool 
     for router in open_routers:
         app.include_router(router)
     routers = guarded + open_routers
-    # Added last = outermost: metrics see every answer, including the body limit's 413.
+    # Added last = outermost: metrics see every answer, including the body limit's 413 and
+    # the 500 of a bug (answered inside, so that the connection is kept).
+    app.add_middleware(InternalErrorMiddleware)
     app.add_middleware(BodyLimitMiddleware, max_body_bytes=settings.max_body_bytes)
     app.add_middleware(
         MetricsMiddleware, metrics=instruments, templates=route_templates(routers)

@@ -1,4 +1,5 @@
-"""Dependencies as Annotated aliases: the app's settings, compute pool and metrics."""
+"""Dependencies as Annotated aliases: the app's settings, compute pool, metrics, and the
+computation context that holds all three."""
 
 from __future__ import annotations
 
@@ -8,6 +9,7 @@ from fastapi import Depends, Request
 
 from service.executor import ComputePool
 from service.metrics import Metrics
+from service.pipeline import Context
 from service.settings import Settings
 
 
@@ -26,6 +28,11 @@ def _metrics(request: Request) -> Metrics:
     return metrics
 
 
+def _context(request: Request) -> Context:
+    return Context(settings=_settings(request), pool=_pool(request), metrics=_metrics(request))
+
+
 SettingsDep = Annotated[Settings, Depends(_settings)]
 PoolDep = Annotated[ComputePool, Depends(_pool)]
 MetricsDep = Annotated[Metrics, Depends(_metrics)]
+ContextDep = Annotated[Context, Depends(_context)]

@@ -4,9 +4,8 @@ A process pool is the default because the engine is CPU-bound Python + numpy; a 
 is the fallback where processes cannot be started. Processes are started with "spawn" (not
 "fork"), because forking a server that already runs threads can copy held locks.
 
-Core errors carry two constructor arguments, which the standard exception pickling cannot
-rebuild, so a worker returns them as an ``EngineFailure`` record and the parent raises the
-same error class again.
+Core errors pickle with their location and message (``TailgaugeError.__reduce__``), so
+they cross the process boundary as they are and are raised again here.
 """
 
 from __future__ import annotations
@@ -19,32 +18,17 @@ import time
 from collections.abc import Callable
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
-from dataclasses import dataclass
 from typing import Any, Literal
 
-from core.errors import TailgaugeError
 from service.errors import ComputationUnavailable
 from service.metrics import Metrics
 
 ORPHAN_CHECK_S = 1.0
 
 
-@dataclass(frozen=True)
-class EngineFailure:
-    error_class: type[TailgaugeError]
-    parameter: str
-    message: str
-
-    def reraise(self) -> None:
-        raise self.error_class(self.parameter, self.message)
-
-
 def call_engine(fn: Callable[..., Any], args: tuple[Any, ...], kwargs: dict[str, Any]) -> Any:
-    """Run in the worker: call the engine, turning its typed errors into picklable records."""
-    try:
-        return fn(*args, **kwargs)
-    except TailgaugeError as exc:
-        return EngineFailure(type(exc), exc.parameter, exc.message)
+    """Run in the worker: call the engine (a module-level name the process pool can pickle)."""
+    return fn(*args, **kwargs)
 
 
 def _exit_when_orphaned(parent_pid: int) -> None:
@@ -139,7 +123,7 @@ class ComputePool:
         except TimeoutError:
             self.metrics.unavailable.labels("time_limit").inc()
             raise ComputationUnavailable(
-                ["body", "precision", "time_limit_s"],
+                ("body", "precision", "time_limit_s"),
                 f"the computation did not finish within the server's wall-time limit of "
                 f"{wall_limit_s:g} s",
                 "time_limit",
@@ -148,10 +132,8 @@ class ComputePool:
             self.metrics.unavailable.labels("worker_lost").inc()
             self._replace_broken(executor)
             raise ComputationUnavailable(
-                ["body"], "a computation worker stopped unexpectedly; try again", "worker_lost"
+                ("body",), "a computation worker stopped unexpectedly; try again", "worker_lost"
             ) from None
-        if isinstance(outcome, EngineFailure):
-            outcome.reraise()
         return outcome
 
     def _replace_broken(self, broken: Executor) -> None:

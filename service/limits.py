@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 
 from core import Portfolio, Precision
-from core.errors import LimitError
+from core.errors import LimitError, Loc
 from service.schemas.common import PortfolioSpec, PrecisionSpec
 from service.schemas.credit import CreditLineSpec
 from service.settings import Settings
@@ -42,22 +42,22 @@ class Budget:
         return []
 
 
-def check_list_length(name: str, length: int, limit: int, setting: str) -> None:
+def check_list_length(loc: Loc, length: int, limit: int, setting: str) -> None:
     if length > limit:
         raise LimitError(
-            name, f"holds {length} items; at most {limit} are allowed (server limit {setting})"
+            loc, f"holds {length} items; at most {limit} are allowed (server limit {setting})"
         )
 
 
 def check_portfolio_size(spec: PortfolioSpec, settings: Settings) -> None:
-    check_list_length("portfolio.lines", len(spec.lines), settings.max_lines, "max_lines")
+    check_list_length(("portfolio", "lines"), len(spec.lines), settings.max_lines, "max_lines")
     groups = [g for line in spec.lines if isinstance(line, CreditLineSpec)
               for g in line.obligors]
-    check_list_length("portfolio.lines", len(groups), settings.max_obligor_groups,
+    check_list_length(("portfolio", "lines"), len(groups), settings.max_obligor_groups,
                       "max_obligor_groups")
     obligors = sum(g.count for g in groups)
     if obligors > settings.max_obligors:
-        raise LimitError("portfolio.lines", f"holds {obligors:,} obligors; at most "
+        raise LimitError(("portfolio", "lines"), f"holds {obligors:,} obligors; at most "
                          f"{settings.max_obligors:,} are allowed (server limit max_obligors)")
 
 
@@ -75,7 +75,7 @@ def check_expected_claims(portfolio: Portfolio, settings: Settings) -> None:
 def _check_samples(name: str, value: int | None, settings: Settings) -> None:
     if value is not None and value > settings.max_samples:
         raise LimitError(
-            f"precision.{name}",
+            ("precision", name),
             f"must be at most {settings.max_samples} (server limit max_samples)",
         )
 
@@ -91,7 +91,7 @@ def _time_limit(spec: PrecisionSpec, settings: Settings) -> tuple[float, bool, l
         note = f"precision.time_limit_s capped at the server limit of {settings.time_limit_s:g} s"
         return settings.time_limit_s, True, [note]
     raise LimitError(
-        "precision.time_limit_s",
+        ("precision", "time_limit_s"),
         f"must be at most {settings.time_limit_s:g} s (server limit time_limit_s)",
     )
 

@@ -7,10 +7,9 @@ from collections.abc import Callable, Sequence
 from typing import Any
 
 import core
-from core.errors import MethodError
+from core.errors import MethodError, TailgaugeError
 from core.parameter_risk import NestedResult, ParameterInterval, ParameterUncertainty
-from service import compute
-from service.executor import ComputePool
+from service.pipeline import EngineCall
 from service.schemas.common import PortfolioSpec
 from service.schemas.exceedance import ExceedanceResponse
 from service.schemas.layers import LayersResponse
@@ -73,20 +72,23 @@ def attach_exceedance(response: ExceedanceResponse, nested: NestedResult) -> Non
     response.warnings.extend(_notes(nested))
 
 
-async def run(pool: ComputePool, spec: PortfolioSpec, plain: Callable[..., Any],
-              with_risk: Callable[..., tuple[Any, NestedResult]], portfolio: Any,
-              *args: Any, wall_limit_s: float, **kwargs: Any) -> tuple[Any, NestedResult | None]:
+def engine_call(spec: PortfolioSpec, plain: Callable[..., Any],
+                with_risk: Callable[..., tuple[Any, NestedResult]], portfolio: Any,
+                args: tuple[Any, ...], kwargs: dict[str, Any],
+                locate: Callable[[TailgaugeError], TailgaugeError] | None = None) -> EngineCall:
     """The engine call, or its parameter-risk form when some line carries
     parameter_uncertainty (absent everywhere: exactly the plain call)."""
     unc = uncertainty(spec)
     if unc and not isinstance(portfolio, core.Portfolio):
         k = min(unc)
-        raise MethodError(f"portfolio.lines[{k}].parameter_uncertainty",
+        raise MethodError(("portfolio", "lines", k, "parameter_uncertainty"),
                           "is supported in portfolios of claim lines only (this portfolio has "
                           "lines of obligors)")
+    where = translate_errors if locate is None else locate
     if not unc:
-        return await compute.run_engine(pool, plain, portfolio, *args,
-                                        wall_limit_s=wall_limit_s, **kwargs), None
-    result, nested = await compute.run_engine(pool, with_risk, portfolio, unc, *args,
-                                              wall_limit_s=wall_limit_s, **kwargs)
-    return result, nested
+        return EngineCall(plain, (portfolio, *args), kwargs, locate=where)
+    return EngineCall(with_risk, (portfolio, unc, *args), kwargs, locate=where, nested=True)
+
+
+def translate_errors(exc: TailgaugeError) -> TailgaugeError:
+    return exc

@@ -54,7 +54,7 @@ class StoreUnavailable(ComputationUnavailable):
     """The run store refused an operation for a reason of the server's: a 503."""
 
     def __init__(self, kind: FaultKind, cause: str) -> None:
-        super().__init__([], _MESSAGES[kind], kind)
+        super().__init__((), _MESSAGES[kind], kind)
         self.fault_kind: FaultKind = kind
         self.cause = cause  # SQLite's own words, for the log only
 

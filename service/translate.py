@@ -73,37 +73,35 @@ _COUNTS: dict[str, Callable[..., Any]] = {
 
 
 @contextmanager
-def located(path: str) -> Iterator[None]:
-    """Prefix ``path`` to the parameter of any core error raised inside the block."""
+def located(*path: str | int) -> Iterator[None]:
+    """Prefix ``path`` to the location of any core error raised inside the block."""
     try:
         yield
     except TailgaugeError as exc:
-        raise type(exc)(f"{path}.{exc.parameter}", exc.message) from exc
+        raise type(exc)((*path, *exc.loc), exc.message) from exc
 
 
 def engine_error_path(exc: TailgaugeError) -> TailgaugeError:
     """Errors from an engine call name portfolio parts relative to the portfolio."""
-    if exc.parameter == "lines" or exc.parameter.startswith(("lines.", "lines[")):
-        return type(exc)(f"portfolio.{exc.parameter}", exc.message)
+    if exc.loc[:1] == ("lines",):
+        return type(exc)(("portfolio", *exc.loc), exc.message)
     return exc
 
 
 def renamed(exc: TailgaugeError, engine_name: str, request_name: str) -> TailgaugeError:
     """An engine error about its own list of points (``engine_name``, index included) pointed
     at the request field those points come from; other errors are kept."""
-    if exc.parameter == engine_name or exc.parameter.startswith(
-        (f"{engine_name}.", f"{engine_name}[")
-    ):
-        return type(exc)(request_name, exc.message)
+    if exc.loc[:1] == (engine_name,):
+        return type(exc)((request_name,), exc.message)
     return exc
 
 
-def _line(spec: LineSpec, path: str) -> core.Line:
-    with located(f"{path}.count"):
+def _line(spec: LineSpec, *path: str | int) -> core.Line:
+    with located(*path, "count"):
         count = _COUNTS[spec.count.kind](**spec.count.model_dump(exclude={"kind"}))
-    with located(f"{path}.severity"):
+    with located(*path, "severity"):
         severity = _SEVERITIES[spec.severity.family](**spec.severity.model_dump(exclude={"family"}))
-    with located(path):
+    with located(*path):
         return core.Line(
             count=count,
             severity=severity,
@@ -115,8 +113,15 @@ def _line(spec: LineSpec, path: str) -> core.Line:
 
 def portfolio(spec: PortfolioSpec) -> core.Portfolio | CreditModel:
     if credit_translate.has_obligors(spec):
-        return credit_translate.credit_model(spec)
-    lines = [_line(line, f"portfolio.lines[{i}]") for i, line in enumerate(spec.lines)]
+        return credit_translate.credit_model(
+            spec, lambda line, i: _line(line, "portfolio", "lines", i))
+    for i, line in enumerate(spec.lines):
+        if isinstance(line, LineSpec) and line.factor_loadings is not None:
+            raise ParameterError(("portfolio", "lines", i, "factor_loadings"),
+                                 "loadings on portfolio.factors apply to claim lines in a book "
+                                 "with lines of obligors; a claim portfolio couples its lines "
+                                 "with portfolio.dependence.correlation")
+    lines = [_line(line, "portfolio", "lines", i) for i, line in enumerate(spec.lines)]
     dep = None
     if spec.dependence is not None:
         # The copula's errors already name portfolio.dependence.<field>[.row.column].
@@ -124,7 +129,7 @@ def portfolio(spec: PortfolioSpec) -> core.Portfolio | CreditModel:
 
         d = spec.dependence
         if d.correlation is None:
-            raise ParameterError("portfolio.dependence.correlation",
+            raise ParameterError(("portfolio", "dependence", "correlation"),
                                  "is required for claim lines: one row and column per line")
         check_correlation(d.correlation, size=len(lines))
         dep = Copula(kind=d.copula, correlation=np.asarray(d.correlation, dtype=float),
@@ -136,7 +141,7 @@ def portfolio(spec: PortfolioSpec) -> core.Portfolio | CreditModel:
 def layers(specs: list[LayerSpec]) -> list[Layer]:
     out = []
     for i, spec in enumerate(specs):
-        with located(f"layers[{i}]"):
+        with located("layers", i):
             out.append(Layer(attachment=spec.attachment, limit=spec.limit))
     return out
 
@@ -149,7 +154,7 @@ def check_finite_means(model: core.Portfolio | CreditModel, figure: str) -> None
     for k, line in enumerate(model.lines):
         if line.paid_count.mean > 0 and not math.isfinite(line.paid_severity.mean):
             raise MethodError(
-                f"portfolio.lines[{k}].severity",
+                ("portfolio", "lines", k, "severity"),
                 f"has an infinite mean claim, so {figure} does not exist; give the line a "
                 "per-claim limit, or use a lighter tail (e.g. Pareto alpha > 1)",
             )
@@ -394,13 +399,13 @@ def layers_response(result: TailResult, *, warnings: list[str]) -> LayersRespons
 
 def ruin_process(spec: ProcessSpec) -> core.SurplusProcess:
     """The surplus process; a claim law with an infinite mean is refused at its severity."""
-    with located("process.severity"):
+    with located("process", "severity"):
         severity = _SEVERITIES[spec.severity.family](**spec.severity.model_dump(exclude={"family"}))
     if spec.retention is None and not math.isfinite(severity.mean):
         # Without a finite mean claim neither the loading's premium nor the net profit
         # condition means anything.
         raise ParameterError(
-            "process.severity",
+            ("process", "severity"),
             "has an infinite mean claim, but a ruin process needs a finite mean claim; give a "
             "retention (the insurer then pays min(X, retention)), or a lighter tail (e.g. "
             "Pareto alpha > 1)",

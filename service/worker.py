@@ -1,8 +1,8 @@
 """The run worker: takes queued batch items from the run store and computes them.
 
-Items run as asyncio tasks in the service process (``run_workers`` at a time), each calling
-``KINDS[kind].handle`` (exactly what the synchronous endpoint runs) through the app's
-ComputePool. An item's outcome is committed the moment it finishes. At start-up, items a
+Items run as asyncio tasks in the service process (``run_workers`` at a time), each through
+``service.pipeline.run`` with ``KINDS[kind]`` (exactly what the synchronous endpoint runs) on
+the app's ComputePool. An item's outcome is committed the moment it finishes. At start-up, items a
 stopped server left running are requeued (or failed after ``run_max_attempts`` starts); at a
 clean shutdown, running items go back to the queue without counting the attempt.
 
@@ -31,19 +31,13 @@ from prometheus_client import Counter
 from pydantic import BaseModel, ValidationError
 
 import core
-from core.errors import TailgaugeError
-from service.compute import draw_seed
+from service import pipeline
 from service.datadir import DataDirLock, open_store
-from service.errors import (
-    ComputationUnavailable,
-    detail_entry,
-    error_type,
-    parameter_loc,
-    validation_entry,
-)
+from service.errors import detail_entry, problem
 from service.executor import ComputePool
-from service.kinds import KINDS, Kind
 from service.metrics import Metrics
+from service.pipeline import draw_seed
+from service.resources import KINDS
 from service.schemas.runs import (
     ProgressOut,
     RunBatchIn,
@@ -59,6 +53,7 @@ from service.store import (
     ItemRecord,
     NewItem,
     RunRecord,
+    RunStatus,
     RunStore,
     SqliteRunStore,
 )
@@ -71,6 +66,7 @@ COMMIT_RETRY_S = (0.2, 5.0)  # first and longest wait between commits of a held 
 TERMINAL = frozenset({"done", "failed", "cancelled"})
 
 ItemCallback = Callable[[ItemRecord, RunRecord], None]
+Kind = pipeline.Resource[Any, Any]
 
 
 class BatchRejected(Exception):
@@ -130,7 +126,8 @@ def _check_batch(batch: RunBatchIn, kinds: Mapping[str, Kind], settings: Setting
 
 def validate_request(kind: Kind, request: Any) -> BaseModel:
     # The mode FastAPI validates a request body in, so that the errors are the endpoint's.
-    return kind.request.model_validate(request, from_attributes=True)
+    parsed: BaseModel = kind.request.model_validate(request, from_attributes=True)
+    return parsed
 
 
 def _with_seed(item: RunItemIn, kind: Kind) -> NewItem:
@@ -216,29 +213,25 @@ async def compute_item(
     item: ItemRecord, *, kinds: Mapping[str, Kind], settings: Settings, pool: ComputePool,
     metrics: Metrics,
 ) -> Outcome:
-    """The synchronous endpoint's body for the item's request, or its 422 detail list."""
+    """The synchronous endpoint's body for the item's request, or its 422 detail list (the
+    endpoint's own answer, from the one error mapping ``service.errors.problem``)."""
     kind = kinds.get(item.kind)
     if kind is None:  # offered at submission, gone after an upgrade
         return _failed(["body"], f"kind '{item.kind}' is not available on this server",
                        "kind_unavailable")
+    context = pipeline.Context(settings=settings, pool=pool, metrics=metrics)
     try:
+        # Validated as FastAPI validates a body, so that the errors are the endpoint's.
         request = validate_request(kind, item.request)
-    except ValidationError as exc:
-        # The same entries as the endpoint's 422: locations start at "body".
-        return Outcome(error=[
-            validation_entry({**e, "loc": ("body", *e["loc"])}) for e in exc.errors()
-        ])
-    try:
-        response: BaseModel = await kind.handle(request, settings, pool, metrics)
-    except TailgaugeError as exc:
-        return _failed(parameter_loc(exc.parameter), exc.message, error_type(exc))
-    except ComputationUnavailable as exc:
-        if exc.kind == "worker_lost" and item.attempts < settings.run_max_attempts:
+        response: BaseModel = await pipeline.run(kind, request, context)
+    except Exception as exc:
+        answer = problem(exc)
+        if answer.kind == "worker_lost" and item.attempts < settings.run_max_attempts:
             return Outcome(retry=True)
-        return _failed(exc.loc, exc.message, exc.kind)
-    except Exception as exc:  # a bug: fail this item, keep the batch going
-        log.exception("batch item %s of run %s raised", item.item_id, item.run_id)
-        return _failed([], f"internal error ({type(exc).__name__})", "internal_error")
+        if answer.status >= 500 and answer.kind == "internal_error":
+            # a bug: fail this item, keep the batch going
+            log.exception("batch item %s of run %s raised", item.item_id, item.run_id)
+        return Outcome(error=answer.detail)
     return Outcome(result=response.model_dump(mode="json", by_alias=True))
 
 
@@ -351,6 +344,34 @@ class RunWorker:
     async def view(self, run_id: str, *, owner: str | None = None) -> RunOut | None:
         snapshot = await asyncio.to_thread(self.store.read_run, run_id, owner=owner)
         return None if snapshot is None else run_view(*snapshot)
+
+    async def run_and_batch(self, run_id: str, *, owner: str | None = None
+                            ) -> tuple[RunOut, RunBatchIn] | None:
+        """The run's view and its stored batch, from one read (None: no such run)."""
+        snapshot = await asyncio.to_thread(self.store.read_run, run_id, owner=owner)
+        return None if snapshot is None else (run_view(*snapshot), batch_view(*snapshot))
+
+    async def batch(self, run_id: str, *, owner: str | None = None) -> RunBatchIn | None:
+        """The run's batch as stored, seeds included (None: no such run for this owner)."""
+        snapshot = await asyncio.to_thread(self.store.read_run, run_id, owner=owner)
+        return None if snapshot is None else batch_view(*snapshot)
+
+    async def cancel(self, run_id: str, *, owner: str | None = None) -> RunOut | None:
+        """Cancel the run's queued items; the run afterwards (None: no such run)."""
+        if await asyncio.to_thread(self.store.cancel_run, run_id, owner=owner) is None:
+            return None
+        self._changed.set()
+        return await self.view(run_id, owner=owner)
+
+    async def list_runs(
+        self, *, status: RunStatus | None, limit: int, offset: int, before_seq: int | None,
+        owner: str | None = None,
+    ) -> list[RunRecord]:
+        """Runs newest first (at most ``limit``), after ``offset`` or below ``before_seq``."""
+        return await asyncio.to_thread(
+            self.store.list_runs, status=status, limit=limit, offset=offset,
+            before_seq=before_seq, owner=owner,
+        )
 
     async def wait_finished(self, run_id: str) -> RunRecord:
         """Return once the run is done, failed or cancelled."""

@@ -39,13 +39,17 @@ class Component:
     threshold: float
     shift: Shift
     w_shape: float | None
+    # Mixed books: a mean shift of the claim lines' own normals (None: from the model).
+    eps_shift: np.ndarray | None = None
 
 
 @dataclass
 class CreditDraw:
-    total: np.ndarray  # (m,) portfolio loss
-    group_loss: np.ndarray  # (m, G)
+    total: np.ndarray  # (m,) portfolio loss (claim lines at their lattice midpoints)
+    group_loss: np.ndarray  # (m, G + L): the groups' losses, then the claim lines'
     log_lr: np.ndarray  # (m,) log f/g of the whole sample (0 for the model itself)
+    total_lo: np.ndarray | None = None  # (m,) with the lines' lower / upper lattice
+    total_hi: np.ndarray | None = None  # quantiles (None without claim lines)
 
 
 def w_shape_for(model: CreditModel, shift: Shift) -> float | None:
@@ -101,6 +105,11 @@ class Sampler:
         self.tables = LgdTables(model)
         n = len(components)
         self.weights = np.array([self.defensive] + [(1.0 - self.defensive) / max(n, 1)] * n)
+        # Components twisted to the same threshold share one twist per sample (a mixed book's
+        # per-line proposals do): each distinct threshold's root is solved once per block.
+        targets = sorted({c.threshold for c in components})
+        self.targets = np.array(targets, dtype=float)
+        self.target_of = [targets.index(c.threshold) for c in components]
 
     def draw(self, m: int, rng: np.random.Generator) -> CreditDraw:
         model, k = self.model, self.model.factors
@@ -119,17 +128,33 @@ class Sampler:
             if w is not None and comp.w_shape is not None:
                 w[sel] = 2.0 * rng.standard_gamma(comp.w_shape, int(sel.sum()))
         cond = conditional_pd(model, x, w)
-        for c, comp in enumerate(self.components, start=1):
+        # The twist of every threshold at every sample: each sample's own (its component's)
+        # draws the losses, all of them enter the mixture's likelihood ratio. The root is
+        # solved sample by sample, so it is the same whichever rows are solved together.
+        thetas = [solve_theta(model, self.tables, cond, t) for t in self.targets]
+        for c in range(1, len(self.components) + 1):
             sel = which == c
-            if sel.any():
-                theta[sel] = solve_theta(model, self.tables, _rows(cond, sel), comp.threshold)
+            theta[sel] = thetas[self.target_of[c - 1]][sel]
         loss, _ = _draw_losses(model, self.tables, cond, theta, rng)
-        total = loss.sum(axis=1)
-        return CreditDraw(total, loss, self._log_lr(cond, x, w, total, which, theta))
+        credit = loss.sum(axis=1)
+        lines = model.line_set
+        if lines is None:
+            return CreditDraw(credit, loss, self._log_lr(cond, x, w, credit, thetas))
+        # Drawn last, so that a book without lines draws what it always drew.
+        eps = rng.standard_normal((m, len(lines.lines)))
+        for c, comp in enumerate(self.components, start=1):
+            if comp.eps_shift is not None:
+                eps[which == c] += comp.eps_shift[None, :]
+        log_lr = self._log_lr(cond, x, w, credit, thetas, eps)
+        ll = lines.losses(x, w, eps)
+        return CreditDraw(credit + ll.mid.sum(axis=1), np.hstack([loss, ll.mid]), log_lr,
+                          credit + ll.lo.sum(axis=1), credit + ll.hi.sum(axis=1))
 
     def _log_lr(self, cond: Conditional, x: np.ndarray, w: np.ndarray | None,
-                total: np.ndarray, which: np.ndarray, theta: np.ndarray) -> np.ndarray:
-        """-log sum_l a_l g_l/f at every sample (0 when drawing from the model only)."""
+                total: np.ndarray, thetas: list[np.ndarray],
+                eps: np.ndarray | None = None) -> np.ndarray:
+        """-log sum_l a_l g_l/f at every sample (0 when drawing from the model only); total is
+        the credit loss (the one the twist is of)."""
         m = total.size
         if not self.components:
             return np.zeros(m)
@@ -142,17 +167,13 @@ class Sampler:
             log_g = x @ mu - 0.5 * float(mu @ mu) if mu.size else np.zeros(m)
             if w is not None and comp.w_shape is not None:
                 log_g = log_g + _log_w_ratio(self.model, comp.w_shape, w)
-            # Every component's twist at this sample's factors (its own theta where it drew).
-            th = np.where(which == c, theta, np.nan)
-            other = which != c
-            if other.any():
-                th[other] = solve_theta(self.model, self.tables, _rows(cond, other),
-                                        comp.threshold)
+            if eps is not None and comp.eps_shift is not None:
+                d = comp.eps_shift
+                log_g = log_g + eps @ d - 0.5 * float(d @ d)
+            # Every component's twist at this sample's factors.
+            th = thetas[self.target_of[c - 1]]
             log_m = self.tables.log_mgf_exact(th[:, None] * e)
             log_g = log_g + th * total - psi(cond, counts, log_m)
             terms.append(math.log(self.weights[c]) + log_g)
         return np.asarray(-np.logaddexp.reduce(np.vstack(terms), axis=0), dtype=float)
 
-
-def _rows(cond: Conditional, sel: np.ndarray) -> Conditional:
-    return Conditional(cond.log_p[sel], cond.log_q[sel])

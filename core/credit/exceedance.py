@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 from collections.abc import Sequence
@@ -15,6 +16,7 @@ from core.diagnostics import ContributionStats
 from core.errors import MethodError, ParameterError
 from core.estimators.base import Group
 from core.exceedance_records import check_seed, check_thresholds, estimate_record, warnings_for
+from core.intervals import Z95
 from core.invariants import check_monotone, check_probability
 from core.precision import Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
@@ -91,10 +93,12 @@ def credit_exceedance(
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(mapped.indices):
+            est = estimate_record(float(x[i]), run.stats, col, run.samples, name, diags[col],
+                                  indicator=name == CRUDE)
+            if model.lines:
+                est = _grid_widened(est, run.stats, col, len(mapped.indices))
             # The invariants every result passes (core.invariants) apply here too.
-            found[i] = check_probability(
-                estimate_record(float(x[i]), run.stats, col, run.samples, name, diags[col],
-                                indicator=name == CRUDE))[0]
+            found[i] = check_probability(est)[0]
     warnings: list[str] = []
     for i in range(x.size):
         if i not in found:
@@ -112,6 +116,18 @@ def credit_exceedance(
     return ExceedanceResult(
         method=name, method_reason=reason, seed=seed, elapsed_s=time.monotonic() - start,
         stopped_by=stopped, mean=mean, std_dev=sd, estimates=estimates, warnings=warnings)
+
+
+def _grid_widened(est: ExceedanceEstimate, stats: ContributionStats, col: int, g: int
+                  ) -> ExceedanceEstimate:
+    """The interval widened to the lower lattice loss's lower 95% limit and the upper one's
+    upper limit: the claim lines' grid error is inside it, never in the standard error."""
+    mean = np.asarray(stats.mean(), dtype=float)
+    se = np.asarray(stats.std_error(), dtype=float)
+    low = max(0.0, float(mean[g + col] - Z95 * se[g + col]))
+    high = min(1.0, float(mean[2 * g + col] + Z95 * se[2 * g + col]))
+    return dataclasses.replace(est, ci_low=min(est.ci_low, low, est.value),
+                               ci_high=max(est.ci_high, high, est.value))
 
 
 def _impossible(x: float, name: str) -> ExceedanceEstimate:

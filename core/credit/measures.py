@@ -24,7 +24,7 @@ import numpy as np
 from scipy import stats
 
 from core.credit.draws import Component, Sampler
-from core.credit.estimators import DEFENSIVE, block_size, component, work
+from core.credit.estimators import DEFENSIVE, block_size, component, line_components, work
 from core.credit.exceedance import check_method, choose
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
@@ -38,6 +38,7 @@ from core.curves import (
     _losses,
     _measure,
     _var_error,
+    lattice_widened,
     layout_block,
     point_columns,
 )
@@ -68,15 +69,29 @@ def guess_var(model: CreditModel, q: float) -> float:
         c = c * math.sqrt(float(stats.chi2.ppf(1.0 - q, nu)) / nu)
     p = stats.norm.cdf((c[None, :] - x @ model.loadings_x.T) / model.residual_sd[None, :])[0]
     mu = np.array([float(lg.mean) for lg in model.lgds])
-    return float(max((model.counts * model.exposures * mu * p).sum(), model.mean))
+    credit = float(max((model.counts * model.exposures * mu * p).sum(), model.credit_mean))
+    # Claim lines: each at its own quantile of the level (a comonotone guess; only the
+    # pilot grid's placement depends on it).
+    lines = model.line_set
+    if lines is None:
+        return credit
+    ubar = np.array([1.0 - q])
+    return credit + sum(float(lq.bounds(ubar)[0][0]) for lq in lines.quantiles)
 
 
-def _values(sampler: Sampler, points: np.ndarray) -> BlockFn:
+def _values(sampler: Sampler, points: np.ndarray, grid: int = 0) -> BlockFn:
+    """[exceedance | stop loss] at the points; with claim lines and grid > 0 then the
+    exceedance of the lower and upper lattice losses at the first `grid` points (the bounds
+    of the lines' grid error, kept last by layout_block)."""
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         d = sampler.draw(m, rng)
         lr = np.exp(d.log_lr)[:, None]
         over = d.total[:, None] - points[None, :]
-        return np.hstack([(over > 0) * lr, np.maximum(over, 0.0) * lr])
+        cols = [(over > 0) * lr, np.maximum(over, 0.0) * lr]
+        if grid and d.total_lo is not None and d.total_hi is not None:
+            a = points[None, :grid]
+            cols += [(d.total_lo[:, None] > a) * lr, (d.total_hi[:, None] > a) * lr]
+        return np.hstack(cols)
 
     return values
 
@@ -85,8 +100,10 @@ def _sampler(model: CreditModel, name: str, anchors: Sequence[float]) -> Sampler
     if name == "crude":
         return Sampler(model, [], 1.0)
     top = model.max_loss
-    comps: list[Component] = [component(model, float(x)) for x in spread_out(anchors)
-                              if 0 < x < top]
+    comps: list[Component] = []
+    for x in spread_out(anchors):
+        if 0 < x < top:
+            comps += [component(model, float(x)), *line_components(model, float(x))]
     return Sampler(model, comps, DEFENSIVE)
 
 
@@ -137,6 +154,8 @@ def credit_tail(
             warnings.append(f"VaR interval at levels {missing} runs past the estimation grid; "
                             "increase samples")
     measures = [_snap(model, curves, _measure(curves, float(level))) for level in q]
+    if model.lines:
+        measures = [lattice_widened(curves, ms) for ms in measures]
     if measures:
         measures = _with_contributions(model, name, measures, anchors, precision, seed, start)
     if run.stopped_by == "time_limit":
@@ -164,8 +183,8 @@ def _run(model: CreditModel, name: str, a: np.ndarray, q: np.ndarray,
          precision: Precision, seed: int, start: float) -> tuple[_Curves, GroupRun]:
     extra = point_columns(layers, losses)
     points = np.concatenate([a, np.asarray(extra, dtype=float)])
-    block = layout_block(_values(_sampler(model, name, anchors), points), a.size, layers,
-                         losses)
+    block = layout_block(_values(_sampler(model, name, anchors), points,
+                                 a.size if model.lines else 0), a.size, layers, losses)
     group = Group((0,), block, work(model, name, len(spread_out(anchors))), name)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     error_of = _var_error(q, a) if q.size else _layer_error(a.size)
@@ -216,7 +235,7 @@ def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEst
     if not use.any():
         return measures
     sampler = _sampler(model, name, anchors)
-    gs, nv = len(model.groups), int(use.sum())
+    gs, nv = len(model.labels), int(use.sum())
     at = vs[use]
 
     def block(n: int, rng: np.random.Generator) -> np.ndarray:
@@ -249,7 +268,8 @@ def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEst
 
 def _contributions(model: CreditModel, m: MeasureEstimate, mean: np.ndarray,
                    var: np.ndarray, n: int) -> MeasureEstimate:
-    gs = len(model.groups)
+    labels = model.labels
+    gs = len(labels)
     a, s = mean[:gs], float(mean[gs])
     if s <= 0:
         return m
@@ -260,11 +280,11 @@ def _contributions(model: CreditModel, m: MeasureEstimate, mean: np.ndarray,
     tvar = m.tvar.value
     rel_t = (m.tvar.std_error or 0.0) / tvar if tvar > 0 else 0.0
     parts = []
-    for g, grp in enumerate(model.groups):
+    for g, label in enumerate(labels):
         c = tvar * float(r[g])
         rel = math.sqrt(float(var_r[g]) / float(r[g]) ** 2 + rel_t**2) if r[g] > 0 else 0.0
         half = Z95 * c * rel
-        parts.append(Contribution(label=grp.label or f"group {g}", tvar_contribution=c,
+        parts.append(Contribution(label=label, tvar_contribution=c,
                                   ci_low=max(0.0, c - half), ci_high=c + half))
     return MeasureEstimate(level=m.level, var=m.var, tvar=m.tvar, diagnostics=m.diagnostics,
                            contributions=parts)

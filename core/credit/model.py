@@ -23,6 +23,7 @@ import numpy as np
 from scipy import stats
 
 from core.credit.lgd import LGD, BetaLGD, FixedLGD
+from core.credit.lines import FactorLine, LineSet
 from core.dependence.copula import COPULAS, check_correlation, correlation_factor
 from core.errors import ParameterError
 from core.validate import integer, positive, real
@@ -60,9 +61,11 @@ class ObligorGroup:
 
 @dataclass(frozen=True, kw_only=True)
 class CreditModel:
-    """Groups on k factors with correlation R (None: independent factors)."""
+    """Groups on k factors with correlation R (None: independent factors), and claim lines
+    loading on the same factors (core.credit.lines; a mixed book)."""
 
     groups: tuple[ObligorGroup, ...]
+    lines: tuple[FactorLine, ...] = ()
     factors: int
     correlation: np.ndarray | None = None
     copula: str = "gaussian"
@@ -87,13 +90,12 @@ class CreditModel:
         for g, grp in enumerate(self.groups):
             b = np.asarray(grp.factor_loadings, dtype=float)
             where = f"groups.{g}.factor_loadings"
-            if b.size != k:
-                raise ParameterError(where, f"must have {k} entries (one per factor), "
-                                            f"got {b.size}")
-            systematic = float(b @ (a @ a.T) @ b) if k else 0.0
-            if not systematic < _MAX_SYSTEMATIC:
-                raise ParameterError(where, "the loadings' systematic variance b' R b must be "
-                                            f"below 1 (|b| < 1), got {systematic:.6g}")
+            _check_loadings(b, a, k, where)
+        for i, fl in enumerate(self.lines):
+            if not isinstance(fl, FactorLine):
+                raise ParameterError(f"lines.{i}", "must be a FactorLine")
+            _check_loadings(np.asarray(fl.factor_loadings, dtype=float), a, k,
+                            f"lines.{i}.factor_loadings")
 
     # -- derived arrays (one entry per group) --
     @property
@@ -140,20 +142,48 @@ class CreditModel:
         return int(self.counts.sum())
 
     @property
+    def line_set(self) -> LineSet | None:
+        """The claim lines on the factors (None for a book of obligors only)."""
+        if not self.lines:
+            return None
+        found = self.cache.get("line_set")
+        if found is None:
+            b = np.array([fl.factor_loadings for fl in self.lines], dtype=float).reshape(
+                len(self.lines), self.factors)
+            found = LineSet(self.lines, np.asarray(b @ self.cholesky, dtype=float),
+                            self.copula, self.df)
+            self.cache["line_set"] = found
+        assert isinstance(found, LineSet)
+        return found
+
+    @property
+    def labels(self) -> list[str]:
+        """Every part of the book: the groups, then the claim lines."""
+        return ([g.label or f"group {i}" for i, g in enumerate(self.groups)]
+                + [fl.label or f"line {i}" for i, fl in enumerate(self.lines)])
+
+    @property
     def max_loss(self) -> float:
-        """The loss when every obligor defaults with its largest loss given default."""
+        """The loss when every obligor defaults with its largest loss given default (no
+        bound once claim lines join)."""
+        if self.lines:
+            return math.inf
         return float(sum(g.count * g.loss_per_default_max for g in self.groups))
 
     @property
-    def mean(self) -> float:
+    def credit_mean(self) -> float:
         return float(sum(g.count * g.exposure * g.default_probability
                          * _lgd_mean(g.loss_given_default) for g in self.groups))
+
+    @property
+    def mean(self) -> float:
+        return self.credit_mean + sum(fl.line.mean for fl in self.lines)
 
     @property
     def lattice_unit(self) -> float | None:
         """The h with every loss an integer multiple of it (fixed LGDs whose losses per default
         have a common measure), else None: the loss then has no lattice to snap a VaR to."""
-        if not self.fixed_lgd:
+        if not self.fixed_lgd or self.lines:
             return None
         units = sorted({g.exposure * g.loss_given_default.maximum for g in self.groups})
         h = units[0]
@@ -174,6 +204,15 @@ class CreditModel:
     @property
     def expected_defaults(self) -> float:
         return float((self.counts * self.pds).sum())
+
+
+def _check_loadings(b: np.ndarray, a: np.ndarray, k: int, where: str) -> None:
+    if b.size != k:
+        raise ParameterError(where, f"must have {k} entries (one per factor), got {b.size}")
+    systematic = float(b @ (a @ a.T) @ b) if k else 0.0
+    if not systematic < _MAX_SYSTEMATIC:
+        raise ParameterError(where, "the loadings' systematic variance b' R b must be "
+                                    f"below 1 (|b| < 1), got {systematic:.6g}")
 
 
 def _lgd_mean(lgd: LGD) -> float:

@@ -62,4 +62,12 @@ def loss_moments(model: CreditModel) -> tuple[float, float]:
     mean = float((n * e * mu * model.pds).sum())
     cross = np.outer(n * e * mu, n * e * mu) - np.diag(n * (e * mu) ** 2)
     second_moment = float((n * e * e * second * model.pds).sum() + (cross * pair).sum())
-    return mean, math.sqrt(max(second_moment - mean * mean, 0.0))
+    sd = math.sqrt(max(second_moment - mean * mean, 0.0))
+    lines = model.line_set
+    if lines is None:
+        return mean, sd
+    # Claim lines on the factors: independent of the credit loss (and of each other) only
+    # when every loading is zero; the covariances otherwise are not computed (unknown, NaN).
+    var = sd * sd + lines.variance
+    return mean + lines.mean, math.sqrt(var) if lines.independent and math.isfinite(
+        var) else math.nan

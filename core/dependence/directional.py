@@ -78,6 +78,44 @@ class LineEstimator:
         return out
 
 
+    def piece_moments(self, n: int, rng: np.random.Generator, x: float
+                      ) -> tuple[FloatArray, FloatArray]:
+        """(mean, second moment) of each piece's own value f_k (before the division by p_k)
+        at x, from n // K draws per piece: what the allocation of samples to pieces needs."""
+        d = self.amounts.dim
+        each = max(1, n // len(self.pieces))
+        mean, second = np.zeros(len(self.pieces)), np.zeros(len(self.pieces))
+        for k, piece in enumerate(self.pieces):
+            g = piece.mixture.sample(each, rng, d)
+            u = piece.direction
+            b = self.amounts.mu[None, :] + (g - np.outer(g @ u, u)) @ self.amounts.loading.T
+            prob, _, _ = line_functionals(b, self.amounts.loading @ u, np.array([math.log(x)]),
+                                          largest=piece.largest)
+            f = prob[:, 0] * np.exp(piece.mixture.log_ratio(g))
+            mean[k], second[k] = float(f.mean()), float(np.mean(f * f))
+        return mean, second
+
+
+def allocation(probs: FloatArray, second: FloatArray) -> FloatArray:
+    """Sample shares of the pieces: the variance sum_k M_k / p_k - P^2 of a piece mixture is
+    smallest at p_k proportional to sqrt(M_k) (the Neyman allocation of stratified sampling,
+    Neyman 1934); a tenth stays on the given shares so that a piece whose pilot moment came out
+    too small keeps samples (any positive shares leave the estimator unbiased)."""
+    root = np.sqrt(np.maximum(second, 0.0))
+    if not np.all(np.isfinite(root)) or root.sum() <= 0:
+        return probs
+    return np.asarray(0.9 * root / root.sum() + 0.1 * probs, dtype=float)
+
+
+def _distinct(shifts: list[FloatArray]) -> list[FloatArray]:
+    """The shifts that are not (numerically) zero nor a repeat of an earlier one."""
+    out: list[FloatArray] = []
+    for v in shifts:
+        if np.linalg.norm(v) > 1e-9 and all(np.linalg.norm(v - w) > 1e-6 for w in out):
+            out.append(v)
+    return out
+
+
 def _piece_probs(amounts: Amounts, log_x: float) -> FloatArray:
     # Half uniform (no piece starves), half by each amount's own tail at x.
     from scipy import special
@@ -124,7 +162,10 @@ def directional_is(amounts: Amounts, anchors: Sequence[float]) -> LineEstimator:
         u = a[k] / np.linalg.norm(a[k])
         # The design point of this piece: the local optimum reached from amount k alone.
         local = [amounts.local_design_point(math.log(x), u) for x in anchors]
-        shifts = [p - (p @ u) * u for p in local]
-        shifts = [s for s in shifts if np.linalg.norm(s) > 1e-9]
+        # The global design points too: the refinement from amount k alone can stop at a local
+        # optimum, while much of the piece's mass lies where amount k just beats the amount of
+        # the global point (on a 20-amount one-factor book at 1e-12 the relative variance fell
+        # from about 15 to 2 with them).
+        shifts = _distinct([p - (p @ u) * u for p in local + points])
         pieces.append(Piece(u, k, ShiftMixture(np.array(shifts).reshape(-1, amounts.dim))))
     return LineEstimator(amounts, tuple(pieces), _piece_probs(amounts, math.log(max(anchors))))

@@ -34,6 +34,7 @@ Values = Callable[[int, np.random.Generator], FloatArray]
 
 DEPENDENT_METHODS = ("crude", "conditional", "conditional_is", "radial", "mean_shift")
 SHIFT_SCALES = (0.25, 0.5, 0.75, 1.0)
+PILOT_DRAWS = 2048  # per shift scale, shared among the pieces
 
 
 def candidates(portfolio: Portfolio, *, measures: bool) -> list[str]:
@@ -111,10 +112,11 @@ def _tuned(est: directional.LineEstimator, a: FloatArray, anchors: list[float],
            seed: int) -> directional.LineEstimator:
     """Scale the shifts by the factor with the smallest pilot relative variance at the
     largest anchor (a conditional value already follows the failure direction, so the
-    second-moment optimum sits short of the design point)."""
+    second-moment optimum sits short of the design point), and share the samples among the
+    pieces by the pilot's second moments (directional.allocation)."""
     from core.streams import Purpose, Stream
 
-    x = np.array([max(anchors)])
+    x = max(anchors)
     best, best_rv = est, math.inf
     for i, lam in enumerate(SHIFT_SCALES):
         pieces = tuple(directional.Piece(p.direction, p.largest,
@@ -123,10 +125,11 @@ def _tuned(est: directional.LineEstimator, a: FloatArray, anchors: list[float],
                        for p in est.pieces)
         cand = directional.LineEstimator(est.amounts, pieces, est.probs)
         rng = Stream(Purpose.ADAPT, "dependent-shift-pilot").rng(seed, i)
-        v = cand.values(2048, rng, x, np.zeros(0, np.int64))[:, 0]
-        mean = float(v.mean())
-        rv = float(v.var() / mean**2) if mean > 0 else math.inf
+        mean, second = cand.piece_moments(PILOT_DRAWS, rng, x)
+        probs = directional.allocation(est.probs, second)
+        total = float(mean.sum())
+        rv = float(np.sum(second / probs) / total**2 - 1.0) if total > 0 else math.inf
         if rv < best_rv:
-            best, best_rv = cand, rv
+            best, best_rv = directional.LineEstimator(est.amounts, pieces, probs), rv
     del a
     return best

@@ -17,11 +17,14 @@ import numpy.typing as npt
 
 from core.dependence import engine
 from core.dependence.amounts import lognormal_amounts
+from core.dependence.marginals import LineQuantile, line_quantiles
+from core.dependence.moments import dependent_std_dev
 from core.diagnostics import ContributionStats
 from core.errors import LimitError, MethodError, TailgaugeError
 from core.estimators.base import Group
 from core.exceedance_records import warnings_for
 from core.intervals import Z95
+from core.invariants import check_monotone, check_probability
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
@@ -30,15 +33,17 @@ from core.streams import Purpose, Stream
 
 FloatArray = npt.NDArray[np.float64]
 PILOT_SAMPLES = 4096
+MEASURE_TAIL = 1e-9  # the smallest tail a risk-measure request's lattices resolve
+EXCEEDANCE_TAIL = 1e-12  # the same for an exceedance request
 SHIFTED = ("conditional_is", "mean_shift")
 
 
-def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int) -> list[Group]:
+def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int, *,
+            measures: bool = False) -> list[Group]:
     parts = [[i] for i in range(x.size)] if name in SHIFTED else [list(range(x.size))]
-    tail = 1e-12
-    # Only exceedance columns are used here: lattices need to reach just past the largest
-    # threshold (a line beyond it exceeds every threshold in both bounds).
-    top = 1.05 * float(np.max(x)) if float(np.min(x)) > 0 else None
+    # A risk-measure request's pilot uses the lattices its main run builds (core.measures),
+    # so they are built once.
+    tail, top = (MEASURE_TAIL, None) if measures else (EXCEEDANCE_TAIL, top_of(x))
     out = []
     for idx in parts:
         pts = x[idx]
@@ -53,6 +58,22 @@ def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int) -> list[G
 
         out.append(Group(tuple(idx), block, _work(name, portfolio, g), name))
     return out
+
+
+def top_of(x: FloatArray) -> float | None:
+    """Only exceedance columns are used by an exceedance request: lattices need to reach just
+    past the largest threshold (a line beyond it exceeds every threshold in both bounds)."""
+    return 1.05 * float(np.max(x)) if float(np.min(x)) > 0 else None
+
+
+def dependent_moments(portfolio: Portfolio, quantiles: list[LineQuantile]
+                      ) -> tuple[float, float]:
+    """(mean, standard deviation) of S: closed forms for lognormal amounts, else the line
+    means and the quadrature of core.dependence.moments (NaN when it cannot vouch)."""
+    amounts = lognormal_amounts(portfolio)
+    if amounts is not None:
+        return amounts.mean, math.sqrt(amounts.variance)
+    return portfolio.mean, dependent_std_dev(portfolio, tuple(quantiles))
 
 
 def _work(name: str, portfolio: Portfolio, points: int) -> float:
@@ -102,10 +123,10 @@ def _estimates(x: FloatArray, group: Group, stats: ContributionStats, samples: i
     return out
 
 
-def _pilot_cost(name: str, portfolio: Portfolio, x: FloatArray, seed: int
+def _pilot_cost(name: str, portfolio: Portfolio, x: FloatArray, seed: int, measures: bool
                 ) -> tuple[float, bool]:
     cost, reliable = 0.0, True
-    for k, group in enumerate(_groups(name, portfolio, x, seed)):
+    for k, group in enumerate(_groups(name, portfolio, x, seed, measures=measures)):
         rng = Stream(Purpose.PILOT, f"dependent:{name}", (k,)).rng(seed, 0)
         stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
         g = len(group.indices)
@@ -124,7 +145,7 @@ def choose(portfolio: Portfolio, x: FloatArray, seed: int, *, measures: bool = F
     refused: list[TailgaugeError] = []
     for name in engine.candidates(portfolio, measures=measures):
         try:
-            cost, ok = _pilot_cost(name, portfolio, x, seed)
+            cost, ok = _pilot_cost(name, portfolio, x, seed, measures)
         except (MethodError, LimitError) as exc:
             refused.append(exc)
             continue
@@ -170,17 +191,21 @@ def dependent_exceedance(portfolio: Portfolio, x: FloatArray, method: str,
                             error_of=_mid_error(len(group.indices)))  # type: ignore[arg-type]
             stops.append(run.stopped_by)
             for i, est in _estimates(x, group, run.stats, run.samples, name):
+                # The invariants every figure passes (core.invariants), before auto's retry
+                # decision, so that a violation is retried like any other flag.
+                est = check_probability(est)[0]
                 if i not in found or (rank > 0 and est.diagnostics.reliable):
                     if rank > 0:
                         reason += f"; threshold {x[i]:g} re-estimated by {name} after a flag"
                     found[i] = est
-    estimates = [found[i] for i in range(x.size)]
+    estimates, notes = check_monotone([found[i] for i in range(x.size)], x.tolist())
     order = ("time_limit", "max_samples", "samples", "relative_error")
     stopped = next(s for s in order if s in stops)
-    warnings = warnings_for(estimates)
-    amounts = lognormal_amounts(portfolio)
-    mean = amounts.mean if amounts is not None else portfolio.mean
-    sd = math.sqrt(amounts.variance) if amounts is not None else math.nan
+    warnings = warnings_for(estimates) + notes
+    if stopped == "time_limit":
+        warnings.append("stopped by the time limit: the figures are not reproducible exactly")
+    mean, sd = dependent_moments(portfolio, line_quantiles(portfolio, EXCEEDANCE_TAIL,
+                                                               top_of(x)))
     used = sorted({e.method for e in estimates})
     return ExceedanceResult(
         method=used[0] if len(used) == 1 else "+".join(used), method_reason=reason,

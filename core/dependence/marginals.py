@@ -31,6 +31,7 @@ CELLS = 4096
 # quantile at every level.
 NESTING_RATIO = 8.0
 MAX_LEVELS = 6
+FILL_CELLS = 2 * CELLS
 
 
 @dataclass(frozen=True)
@@ -122,10 +123,9 @@ def _build(portfolio: Portfolio, smallest_tail: float, top_at: float | None
         if top_at is not None:
             top = min(top, top_at)
         lows, ups, spans = [], [], []
-        tops = [top / NESTING_RATIO**k for k in range(MAX_LEVELS)]
-        tops = [t for t in tops if t >= line.mean] or [top]
-        for level_top in tops:
-            grid = Grid.with_top(top=level_top, cells=CELLS)
+        tops, main = _tops(top, line.mean)
+        for k, level_top in enumerate(tops):
+            grid = Grid.with_top(top=level_top, cells=CELLS if k < main else FILL_CELLS)
             # Panjer's recursion (exact_tail=False): the survival is summed from the pmf,
             # whose entries keep their relative accuracy far below 1e-6.
             lows.append(aggregate(single, grid, "down", exact_tail=False).survival())
@@ -133,6 +133,49 @@ def _build(portfolio: Portfolio, smallest_tail: float, top_at: float | None
             spans.append(grid.span)
         out.append(LineQuantile(line, Lattices(tuple(lows), tuple(ups), tuple(spans))))
     return out
+
+
+def with_reach(quantiles: tuple[LineQuantile, ...], tail: float
+               ) -> tuple[LineQuantile, ...]:
+    """The same bounds with one lattice more per compound line whose largest top is short of
+    the point where the line's tail is below `tail` (moments need the whole range; a request
+    of exceedance builds lattices only up to its thresholds). Adding a lattice keeps every
+    bound valid: the bounds are the tightest over the lattices."""
+    from core.discretise import Grid
+    from core.recursion import aggregate
+
+    out = []
+    for q in quantiles:
+        lat = q.lattices
+        if lat is None:
+            out.append(q)
+            continue
+        top = _lattice_top(q.line, tail)
+        reach = max(s.size * h for s, h in zip(lat.survival_low, lat.spans, strict=True))
+        single = Portfolio(lines=[q.line])
+        lows, ups, spans = list(lat.survival_low), list(lat.survival_up), list(lat.spans)
+        while top > reach:  # T, T/8, ... down to the lattices there are
+            grid = Grid.with_top(top=top, cells=CELLS)
+            lows.append(aggregate(single, grid, "down", exact_tail=False).survival())
+            ups.append(aggregate(single, grid, "up", exact_tail=False).survival())
+            spans.append(grid.span)
+            top /= NESTING_RATIO
+        out.append(LineQuantile(q.line, Lattices(tuple(lows), tuple(ups), tuple(spans))))
+    return tuple(out)
+
+
+def _tops(top: float, mean: float) -> tuple[list[float], int]:
+    """Lattice tops T, T/8, ... down to the line's mean (the first `main` of the list, at
+    CELLS cells), then halvings of the two smallest (FILL_CELLS cells, above the mean): the
+    body and the near tail are where a line sits in a tail scenario of the sum at the levels
+    capital is set at, and there the bound width (about E[N] h) is what widens a VaR interval
+    (Poisson(20) gamma(2) beside Poisson(5) lognormal(0, 1.5) at 0.995: relative half-width
+    0.77% with the main lattices alone, of which 0.34% is sampling)."""
+    tops = [t for t in (top / NESTING_RATIO**k for k in range(MAX_LEVELS)) if t >= mean]
+    tops = tops or [top]
+    main = len(tops)
+    fill = [t / 2.0**j for t in tops[-2:] for j in (1, 2)]
+    return tops + [t for t in fill if t >= mean], main
 
 
 def _lattice_top(line: Line, tail: float) -> float:

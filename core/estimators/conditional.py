@@ -72,17 +72,21 @@ class Conditioning:
             top = np.maximum(top, draw.line_max[k])
         b = x[None, :] - draw.total[:, None]
         t = np.maximum(top[:, None], b)
-        logsf = np.empty_like(t)
         sl = np.zeros_like(t)
-        for k in self.heavy:
-            mask = cond == k
-            if mask.any():
-                sev = lines[k].paid_severity
-                logsf[mask] = sev.logsf(t[mask])
-                if stop_loss:
-                    tk = t[mask]
-                    sl[mask] = excess_mean(sev, tk) + (tk - b[mask]) * np.exp(logsf[mask])
-        log_v = math.log(self.rate) + logsf + draw.log_lr[:, None]
+        if len(self.heavy) == 1 and not stop_loss:
+            # One conditioned line: no per-line masks (each would copy the (m, G) array).
+            logsf = np.asarray(lines[self.heavy[0]].paid_severity.logsf(t), dtype=float)
+        else:
+            logsf = np.empty_like(t)
+            for k in self.heavy:
+                mask = cond == k
+                if mask.any():
+                    sev = lines[k].paid_severity
+                    logsf[mask] = sev.logsf(t[mask])
+                    if stop_loss:
+                        tk = t[mask]
+                        sl[mask] = excess_mean(sev, tk) + (tk - b[mask]) * np.exp(logsf[mask])
+        log_v = logsf + (math.log(self.rate) + draw.log_lr)[:, None]
         v = np.exp(log_v)
         light_sum = np.zeros(m)
         light_lr = np.ones(m)

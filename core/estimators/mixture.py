@@ -39,12 +39,22 @@ class TiltFamily:
         self.portfolio, self.grids, self.lead = portfolio, grids, lead
         # An optional component with one big claim on a line (core.big_claim).
         self.big, self.big_share = big, (big_share if big is not None else 0.0)
+        # The stepwise tilts that proposals drew from, kept so every block reuses their
+        # sampling tables (building one costs more than drawing a block's claims).
+        self._steps: dict[tuple[int, float], StepwiseTilt] = {}
+
+    def _step(self, k: int, grid: TiltGrid, theta: float) -> StepwiseTilt:
+        step = self._steps.get((k, theta))
+        if step is None:
+            step = self._steps[(k, theta)] = StepwiseTilt(grid, theta)
+        return step
 
     def _log_w(self, k: int, theta: float) -> float:
         grid = self.grids[k]
         if grid is None:
             return float(self.portfolio.lines[k].paid_severity.cumulant(theta))
-        return StepwiseTilt(grid, theta).log_w
+        step = self._steps.get((k, theta))
+        return (step or StepwiseTilt(grid, theta)).log_w
 
     def proposal(self, theta: float) -> tuple[list[LineProposal], list[StepwiseTilt | None]]:
         props: list[LineProposal] = []
@@ -55,7 +65,7 @@ class TiltFamily:
                 steps.append(None)
                 continue
             grid = self.grids[k]
-            step = None if grid is None else StepwiseTilt(grid, theta)
+            step = None if grid is None else self._step(k, grid, theta)
             log_w = self._log_w(k, theta) if step is None else step.log_w
             tilt = 0.0 if line.paid_count.kind == "fixed" else log_w
             props.append(LineProposal(count_tilt=tilt, claim_tilt=theta))

@@ -1,5 +1,11 @@
 """The automatic choice: candidates from the tails in the model, then a short pilot of each,
-compared by work-normalised variance (relative variance times a deterministic work proxy)."""
+compared by work-normalised variance (relative variance times a deterministic work proxy).
+
+An exceedance pilot draws the first blocks of each candidate's own sample streams, so the
+chosen estimator's pilot counts towards its estimate (core.precision.run_group continues it):
+no sample is wasted on the winner, and the answer still reproduces from the seed. The pilot's
+size scales with the request (pilot_samples).
+"""
 
 from __future__ import annotations
 
@@ -13,9 +19,26 @@ from core.errors import LimitError, MethodError, TailgaugeError
 from core.estimators import registry
 from core.estimators.base import Group
 from core.portfolio import Portfolio
+from core.precision import GroupRun, draw_blocks
+from core.sampling import block_size
 from core.streams import Purpose, Stream
 
+# The pilot of risk measures' choice (its draws are not the estimate's; core.measures).
 PILOT_SAMPLES = 4096
+# An exceedance pilot spends about this share of the request per candidate, within bounds:
+# the losers' pilots are the price of the choice, so it must stay a small part of the run.
+PILOT_SHARE = 0.125
+PILOT_MIN, PILOT_MAX = 4096, 65536
+
+
+def pilot_samples(request: int, block: int) -> int:
+    """Pilot size for a request of `request` samples per sample set: whole blocks when it
+    reaches one (then auto's figures equal the chosen method's own run), never more than the
+    request (a request smaller than the pilot is answered by the pilot itself)."""
+    want = int(min(PILOT_MAX, max(PILOT_MIN, PILOT_SHARE * request)))
+    if want >= block:
+        want = want // block * block
+    return min(int(request), want)
 
 
 def candidates(portfolio: Portfolio) -> list[str]:
@@ -35,38 +58,61 @@ class Trial:
     cost: float
     reliable: np.ndarray  # one flag per threshold
     relvar: np.ndarray
+    # Per group, the pilot's draws on the estimate's own stream (None: nothing to continue).
+    begun: list[GroupRun] | None = None
+
+
+def _pilot_stats(name: str, group: Group, g: int, seed: int, samples: int | None,
+                 portfolio: Portfolio) -> GroupRun:
+    stream_name = registry.get(name).stream
+    if samples is None:
+        # Risk measures: a pilot on a stream of its own, never part of their estimate.
+        rng = Stream(Purpose.PILOT, stream_name, (g,)).rng(seed, 0)
+        stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
+        return GroupRun(stats, PILOT_SAMPLES, "samples")
+    # The first blocks of the estimate's own stream (core.exceedance._run uses the same key).
+    stream = Stream(Purpose.SAMPLES, stream_name, (g,))
+    block = block_size(portfolio)
+    return draw_blocks(group, stream, seed, pilot_samples(samples, block), block)
 
 
 def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int,
-          deadline: float | None = None) -> Trial:
+          samples: int | None = None, deadline: float | None = None) -> Trial:
+    """Pilot one candidate. samples: the request's samples per sample set, for an exceedance
+    pilot that the estimate continues; None: a separate pilot of PILOT_SAMPLES."""
     groups = plan(name, portfolio, x, seed, deadline)
     relvar = np.full(x.size, math.inf)
     reliable = np.zeros(x.size, dtype=bool)
     cost = 0.0
+    begun: list[GroupRun] = []
     for g, group in enumerate(groups):
         # Each candidate pilots on streams of its own (core.streams keys them by name).
-        rng = Stream(Purpose.PILOT, registry.get(name).stream, (g,)).rng(seed, 0)
-        stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
+        run = _pilot_stats(name, group, g, seed, samples, portfolio)
+        begun.append(run)
+        stats = run.stats
         mean = np.asarray(stats.mean(), dtype=float)
         se = np.asarray(stats.std_error(), dtype=float)
         with np.errstate(divide="ignore", invalid="ignore"):
-            rv = np.where(mean > 0, (se / mean) ** 2 * PILOT_SAMPLES, math.inf)
+            rv = np.where(mean > 0, (se / mean) ** 2 * run.samples, math.inf)
         idx = list(group.indices)
         relvar[idx] = rv
         reliable[idx] = [d.reliable for d in stats.diagnose()]
         # A shared sample set costs its work once for all of its thresholds.
         cost += float(np.max(rv)) * group.work
-    return Trial(name, groups, cost, reliable, relvar)
+    return Trial(name, groups, cost, reliable, relvar, None if samples is None else begun)
 
 
-def choose(portfolio: Portfolio, x: np.ndarray, seed: int,
+def choose(portfolio: Portfolio, x: np.ndarray, seed: int, samples: int | None = None,
            deadline: float | None = None) -> tuple[list[Trial], str]:
-    """Trials ordered best first, and the reason in words."""
+    """Trials ordered best first, and the reason in words. samples: as in `pilot`."""
     trials: list[Trial] = []
     refused: list[TailgaugeError] = []
+    size = PILOT_SAMPLES
+    if samples is not None:
+        size = pilot_samples(samples, block_size(portfolio))
     for name in candidates(portfolio):
         try:
-            trials.append(pilot(name, portfolio, x, seed, deadline))
+            trials.append(pilot(name, portfolio, x, seed, samples, deadline))
         except (LimitError, MethodError) as exc:
             # A candidate that cannot serve this request leaves the choice to the others.
             refused.append(exc)
@@ -80,9 +126,11 @@ def choose(portfolio: Portfolio, x: np.ndarray, seed: int,
     )
     tails = "light tails" if portfolio.is_light else "heavy tails"
     reason = (
-        f"{tails}: pilot of {PILOT_SAMPLES} samples per candidate; {best.name} has the lowest "
+        f"{tails}: pilot of {size} samples per candidate; {best.name} has the lowest "
         f"work-normalised variance" + (f" (others relative: {others})" if others else "")
     )
+    if samples is not None:
+        reason += f"; its pilot's {size} samples count towards the estimate"
     if not best.reliable.all():
         reason += "; no candidate passed every reliability check in the pilot"
     return trials, reason

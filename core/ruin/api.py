@@ -180,7 +180,7 @@ def _for_target(regime: Regime, ctx: Context, target: float
             return regime.estimate(u, stream, tilt_at=bracket.hi)
     else:
         estimate = regime.estimate
-    return capital.search(estimate, bracket, target)
+    return capital.search(estimate, bracket, target, deadline=ctx.deadline)
 
 
 def ruin(

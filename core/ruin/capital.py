@@ -14,12 +14,14 @@ confidence. A bracket whose top is not known to suffice is widened until the ban
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 import numpy as np
 
 from core.results import CapitalForTarget, RuinEstimate
+from core.ruin.runner import OutOfTime
 
 GRID_POINTS = 65
 WIDENINGS = 3
@@ -73,15 +75,40 @@ def crossing(b: Bracket, u: np.ndarray, values: np.ndarray, target: float) -> fl
     return b.u(x0 + share * (x1 - x0))
 
 
+def _out_of_time(target: float, reached: tuple[float, float | None, float | None] | None
+                 ) -> tuple[CapitalForTarget, list[str], list[str]]:
+    """What the search reached when the time limit stopped it: (top of the last finished grid,
+    its point and lower crossings), or nothing."""
+    if reached is None:
+        note = (f"capital for target {target:g}: the time limit passed before the first grid of "
+                "the capital search finished; no capital found")
+        return CapitalForTarget(target=target, capital=None, ci_low=None, ci_high=None), \
+            ["time_limit"], [note]
+    top, point, low = reached
+    note = (f"capital for target {target:g}: the time limit stopped the search; the 95% band "
+            f"stays above the target up to capital {top:g} (the last grid finished), so "
+            "ci_high is null" + ("" if low is not None else
+                                 f" and ci_low is that capital, {top:g}"))
+    return CapitalForTarget(target=target, capital=point, ci_low=top if low is None else low,
+                            ci_high=None), ["time_limit"], [note]
+
+
 def search(
-    estimate: Estimator, bracket: Bracket, target: float
+    estimate: Estimator, bracket: Bracket, target: float, *, deadline: float | None = None
 ) -> tuple[CapitalForTarget, list[str], list[str]]:
-    """(the capital for the target, how the runs stopped, warnings)."""
+    """(the capital for the target, how the runs stopped, warnings). Past `deadline` (a
+    time.monotonic() value) the search stops and reports what it reached."""
     stops: list[str] = []
     b = bracket
+    reached: tuple[float, float | None, float | None] | None = None
     for attempt in range(1 + WIDENINGS):
+        if deadline is not None and time.monotonic() > deadline:
+            return _out_of_time(target, reached)
         u = b.grid()
-        found, how = estimate(u, attempt + 1)
+        try:
+            found, how = estimate(u, attempt + 1)
+        except OutOfTime:
+            return _out_of_time(target, reached)
         stops += how
         curves = [np.array([getattr(e, name) for e in found])
                   for name in ("value", "ci_low", "ci_high")]
@@ -96,6 +123,7 @@ def search(
                 point = b.hi if point is None else point
             return CapitalForTarget(target=target, capital=point, ci_low=low, ci_high=high), \
                 stops, notes
+        reached = (b.hi, point, low)
         if attempt < WIDENINGS:
             b = b.wider()
     note = (f"capital for target {target:g}: the 95% band stays above the target up to capital "

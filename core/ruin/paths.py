@@ -16,6 +16,7 @@ however far out u is; the caller multiplies back in log space.
 from __future__ import annotations
 
 import math
+import time
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,6 +24,7 @@ import numpy as np
 from core.errors import LimitError
 from core.ruin.measure import ClaimTilt
 from core.ruin.process import SurplusProcess
+from core.ruin.runner import OutOfTime
 
 PATHS_PER_BLOCK = 1024
 _MAX_STEPS = 1 << 9  # claims drawn per path per chunk, at most
@@ -40,10 +42,12 @@ class PathPlan:
     horizon: float  # math.inf for the infinite horizon
     steps: int
     work: float  # expected claims per path
+    stop_at: float | None = None  # monotonic deadline of a capital search (OutOfTime past it)
 
     @classmethod
     def build(
-        cls, process: SurplusProcess, tilt: ClaimTilt, capitals: np.ndarray, horizon: float
+        cls, process: SurplusProcess, tilt: ClaimTilt, capitals: np.ndarray, horizon: float,
+        *, stop_at: float | None = None,
     ) -> PathPlan:
         u = np.sort(np.asarray(capitals, dtype=float))
         expected = expected_claims(process, tilt, float(u[-1]), horizon)
@@ -55,7 +59,7 @@ class PathPlan:
                 "or a shorter horizon",
             )
         steps = int(min(_MAX_STEPS, max(8, 2 ** math.ceil(math.log2(max(expected / 4, 1.0))))))
-        return cls(process, tilt, u, horizon, steps, expected)
+        return cls(process, tilt, u, horizon, steps, expected, stop_at)
 
     @property
     def arrival_rate(self) -> float:
@@ -83,6 +87,8 @@ def passage_values(plan: PathPlan, m: int, rng: np.random.Generator) -> np.ndarr
     out = np.zeros((m, n_cap))
     active = np.arange(m)
     while active.size:
+        if plan.stop_at is not None and time.monotonic() > plan.stop_at:
+            raise OutOfTime
         n = active.size
         claims, log_fg = plan.tilt.sample(n * k, rng)
         gaps = rng.standard_exponential((n, k)) / rate

@@ -153,13 +153,25 @@ def _read_capital(curves: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray],
     return CapitalForTarget(target=target, capital=capital, ci_low=ci_low, ci_high=float(u[sure]))
 
 
+class _SearchTimedOut(Exception):
+    """The time limit passed between the lattices of the capital search."""
+
+
+def _check_time(deadline: float | None) -> None:
+    if deadline is not None and time.monotonic() > deadline:
+        raise _SearchTimedOut
+
+
 def _search_top(portfolio: Portfolio, ctx: Context, target: float, cells: int) -> float | None:
     """A lattice top whose upper bound is <= target, from the Pollaczek-Khinchine bracket (the
-    Lundberg bound exp(-gamma u) where it holds, else a few times the asymptotic's capital)."""
+    Lundberg bound exp(-gamma u) where it holds, else a few times the asymptotic's capital).
+    Each lattice of a far target can take many seconds: the time limit is checked before each
+    (_SearchTimedOut)."""
     bracket = GeometricRegime(ctx, "recursion").bracket(target)
     # the rounding gap lifts the upper bound over psi: start a little beyond a sure top
     top = bracket.hi * (1.25 if bracket.sure_hi else 1.0) + ctx.process.mean_claim
     for _ in range(1 + _WIDENINGS):
+        _check_time(ctx.deadline)
         grid = Grid.with_top(top=top, cells=cells)
         if aggregate(portfolio, grid, "up").beyond <= target:
             return top
@@ -173,13 +185,24 @@ def _capital_for_target(portfolio: Portfolio, ctx: Context, target: float,
         # psi(0) = rho exactly and psi decreases: no capital is needed
         return CapitalForTarget(target=target, capital=0.0, ci_low=0.0, ci_high=0.0), \
             "samples", []
-    top = _on_grid(lambda cells: _search_top(portfolio, ctx, target, cells), RECURSION_CELLS)
+    try:
+        top = _on_grid(lambda cells: _search_top(portfolio, ctx, target, cells), RECURSION_CELLS)
+    except _SearchTimedOut:
+        note = (f"capital for target {target:g}: the time limit passed before a lattice "
+                "reaching the target was found; no capital found")
+        return CapitalForTarget(target=target, capital=None, ci_low=None, ci_high=None), \
+            "time_limit", [note]
     if top is None:
         note = (f"capital for target {target:g}: the upper bound stays above the target on "
                 "every lattice tried; no capital found")
         return CapitalForTarget(target=target, capital=None, ci_low=None, ci_high=None), \
             "samples", [note]
     found = top
+    if deadline is not None and time.monotonic() > deadline:
+        note = (f"capital for target {target:g}: the time limit passed after the search; the "
+                f"lattice top {top:g} surely suffices (ci_high), the estimate was not computed")
+        return CapitalForTarget(target=target, capital=None, ci_low=None, ci_high=top), \
+            "time_limit", [note]
 
     def compute(cells: int) -> CapitalForTarget:
         return _read_capital(_lattice(portfolio, found, cells), target)

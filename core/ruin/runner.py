@@ -13,6 +13,11 @@ from core.ruin.process import SurplusProcess
 from core.streams import Purpose, Stream
 
 
+class OutOfTime(Exception):
+    """The request's time limit passed inside a block of the capital search (whose blocks of
+    far-reaching paths can take minutes): the search stops and reports what it reached."""
+
+
 @dataclass(frozen=True)
 class Context:
     process: SurplusProcess

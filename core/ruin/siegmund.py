@@ -88,14 +88,16 @@ class PathRegime:
         stops = []
         for part, (tilt, idx) in enumerate(sets.values()):
             key = paths_stream(Purpose.RUIN_PATHS, self.name, stream, part)
-            stops.append(self._run(capitals, tilt, idx, key, found))
+            stops.append(self._run(capitals, tilt, idx, key, found, search=stream > 0))
         return [found[i] for i in range(capitals.size)], stops
 
     def _run(self, capitals: np.ndarray, tilt: ClaimTilt, idx: list[int], key: Stream,
-             found: dict[int, RuinEstimate]) -> str:
+             found: dict[int, RuinEstimate], *, search: bool = False) -> str:
         ctx = self.ctx
         mine = capitals[idx]
-        plan = PathPlan.build(ctx.process, tilt, mine, ctx.horizon)
+        # One block of the search's far-out paths can outlast the request: stop inside it.
+        plan = PathPlan.build(ctx.process, tilt, mine, ctx.horizon,
+                              stop_at=ctx.deadline if search else None)
         back = np.argsort(np.argsort(mine, kind="stable"), kind="stable")  # sorted -> asked
 
         def values(m: int, rng: np.random.Generator) -> np.ndarray:

@@ -104,9 +104,14 @@ class Severity(abc.ABC):
         closed_below: bool = False,
     ) -> Any:
         flat, shape, scalar = _as_floats(x)
-        out = np.full(flat.shape, np.nan)  # NaN in, NaN out
         lo, hi = self.support_min, self.support_max
         inside = ((flat >= lo) if closed_below else (flat > lo)) & (flat < hi) & np.isfinite(flat)
+        if inside.all():
+            # The common case inside the sampler: no fills, no masked copies.
+            with np.errstate(divide="ignore", invalid="ignore"):
+                values = np.asarray(formula(flat), dtype=np.float64)
+            return _finish(values, shape, scalar)
+        out = np.full(flat.shape, np.nan)  # NaN in, NaN out
         _fill(out, (flat <= lo) & ~inside, flat, below)
         _fill(out, flat >= hi, flat, above)
         if inside.any():
@@ -326,6 +331,10 @@ class Severity(abc.ABC):
         gaps = np.diff(np.concatenate([grid, [hi]])) if math.isfinite(hi) else None
         if gaps is not None:
             grid = grid[gaps > 1e-9 * max(abs(hi), 1e-300)]
+        if grid.size == 0 and math.isfinite(lo) and math.isfinite(hi) and hi > lo:
+            # Every quantile lies past the top (a limit far below the body of the law, its
+            # mass in the atom there): quadrature still needs breakpoints inside the support.
+            grid = lo + (hi - lo) * np.linspace(0.0, 1.0, 34)[1:-1]
         if math.isfinite(lo) and grid.size:
             grid = np.concatenate([lo + (grid[0] - lo) * np.logspace(-12.0, -0.5, 12), grid])
         return grid

@@ -12,9 +12,9 @@ from pydantic import BaseModel, ValidationError
 
 from service import charts
 from service.charts.readings import readings
-from service.kinds import KINDS
 from service.report import tables, words
 from service.report.numbers import amount, seconds
+from service.resources import KINDS
 from service.schemas.runs import (
     RunBatchIn,
     RunItemCancelled,

@@ -20,12 +20,12 @@ from fastapi import APIRouter, Body, Depends, Query, Request, Response
 from fastapi.exceptions import RequestValidationError
 from pydantic import BaseModel
 
-from service import charts
+from service import charts, pipeline
 from service.auth import CallerDep
 from service.charts import ChartKind, ImageFormat
-from service.deps import MetricsDep, PoolDep, SettingsDep
+from service.deps import ContextDep
 from service.errors import detail_entry
-from service.kinds import KINDS
+from service.resources import KINDS
 from service.routes.responses import ERROR_RESPONSES, ErrorBody
 from service.routes.run_access import done_item, load_run
 from service.worker import RunWorker
@@ -92,9 +92,7 @@ def _sync_route(router: APIRouter, name: str, examples: dict[str, dict[str, Any]
 
     async def post_chart(
         body: Annotated[request_model, Body(openapi_examples=examples)],  # type: ignore[valid-type]
-        settings: SettingsDep,
-        pool: PoolDep,
-        metrics: MetricsDep,
+        context: ContextDep,
         chart: Annotated[ChartKind | None, _kind_query()] = None,
         fmt: Annotated[ImageFormat, _format_query()] = "svg",
     ) -> Response:
@@ -102,7 +100,7 @@ def _sync_route(router: APIRouter, name: str, examples: dict[str, dict[str, Any]
             raise RequestValidationError([detail_entry(
                 ["query", "kind"], str(charts.ChartNotApplicable(chart, sorted(POSSIBLE[name]))),
                 "chart_not_applicable")])
-        result = await kind.handle(body, settings, pool, metrics)
+        result = await pipeline.run(kind, body, context)
         return await picture(result, chart, fmt)
 
     post_chart.__doc__ = (

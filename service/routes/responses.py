@@ -1,4 +1,4 @@
-"""OpenAPI descriptions of the error responses every computing route can give."""
+"""OpenAPI descriptions of the error responses the routes can give (one body shape for all)."""
 
 from __future__ import annotations
 
@@ -16,6 +16,13 @@ class ErrorEntry(BaseModel):
 class ErrorBody(BaseModel):
     detail: list[ErrorEntry] = Field(description="One entry per problem found.")
 
+
+# Every operation can answer this (the app adds it to each one): a bug, reported in the same
+# shape as every other error, the traceback in the server log.
+INTERNAL_ERROR: dict[int | str, dict[str, Any]] = {
+    500: {"model": ErrorBody, "description": "A server bug (type internal_error); the "
+          "traceback is in the server log, the connection stays usable."},
+}
 
 ERROR_RESPONSES: dict[int | str, dict[str, Any]] = {
     413: {"model": ErrorBody, "description": "Request body larger than the server accepts."},

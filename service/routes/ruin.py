@@ -1,8 +1,8 @@
 """POST /v1/ruin: ruin probabilities of a compound Poisson surplus process at a list of capitals,
 and the capital for a target ruin probability.
 
-``handle`` is the whole computation of the endpoint; the route and batch runs (through
-``service.kinds.KINDS``) both call it, so the two paths give the same answer.
+The computation is ``service.resources.RUIN`` run by ``service.pipeline``, exactly as a
+batch item of the same kind.
 """
 
 # No "from __future__ import annotations": FastAPI must see the endpoint annotations,
@@ -12,75 +12,13 @@ from pathlib import Path
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Body
-from pydantic import BaseModel
 
-import core
-from core.errors import LimitError, TailgaugeError
-from service import compute, limits, translate
-from service.deps import MetricsDep, PoolDep, SettingsDep
+from service import pipeline
+from service.deps import ContextDep
 from service.examples import load_examples
-from service.executor import ComputePool
-from service.metrics import Metrics
+from service.resources import RUIN
 from service.routes.responses import ERROR_RESPONSES
 from service.schemas.ruin import ProcessSpec, RuinRequest, RuinResponse
-from service.settings import Settings
-
-
-def _check_path_claims(process: core.SurplusProcess, horizon: float | None,
-                       settings: Settings) -> None:
-    # With a horizon every simulated path draws about lambda T claims: the cost of one path,
-    # limited as a portfolio's claims per period are.
-    if horizon is None:
-        return
-    claims = process.claim_rate * horizon
-    if claims > settings.max_expected_claims:
-        raise LimitError(
-            "horizon",
-            f"gives {claims:.6g} expected claims per path (claim_rate x horizon); at most "
-            f"{settings.max_expected_claims:g} are allowed (server limit max_expected_claims)",
-        )
-
-
-def _engine_error(exc: TailgaugeError) -> TailgaugeError:
-    # The engine sums ladder heights as a one-line portfolio (Pollaczek-Khinchine) and calls
-    # request-wide trouble "portfolio": for the caller both are the process.
-    return translate.renamed(exc, "portfolio", "process")
-
-
-async def handle(
-    request: BaseModel, settings: Settings, pool: ComputePool, metrics: Metrics
-) -> RuinResponse:
-    """Compute the response of one ruin request (server limits included)."""
-    if not isinstance(request, RuinRequest):
-        raise TypeError(f"expected a RuinRequest, got {type(request).__name__}")
-    body = request
-    limits.check_list_length(
-        "capital", len(body.capital), settings.max_thresholds, "max_thresholds"
-    )
-    process = translate.ruin_process(body.process)
-    _check_path_claims(process, body.horizon, settings)
-    budget = limits.budget(body.precision, settings)
-    seed = body.seed if body.seed is not None else compute.draw_seed()
-    try:
-        result = await compute.run_engine(
-            pool,
-            core.ruin_probability,
-            process,
-            body.capital,
-            wall_limit_s=budget.wall_limit_s,
-            horizon=body.horizon,
-            target_probability=body.target_probability,
-            method=body.method,
-            precision=budget.precision,
-            seed=seed,
-        )
-    except TailgaugeError as exc:
-        raise _engine_error(exc) from exc
-    metrics.samples.labels("ruin").inc(translate.ruin_samples(result))
-    notes = budget.warnings + budget.stop_warnings(
-        result.stopped_by, body.precision.relative_error
-    )
-    return translate.ruin_response(result, process, warnings=notes)
 
 
 def _describe(process: dict[str, Any]) -> str:
@@ -111,9 +49,7 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
     )
     async def post_ruin(
         body: Annotated[RuinRequest, Body(openapi_examples=examples)],
-        settings: SettingsDep,
-        pool: PoolDep,
-        metrics: MetricsDep,
+        context: ContextDep,
     ) -> RuinResponse:
         """psi(u), the probability that the surplus u + c t - (claims paid up to t) ever falls
         below 0 (by time T with a horizon), for every capital u, with a 95% interval (rigorous
@@ -122,6 +58,6 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
         claims need a finite mean (e.g. Pareto alpha > 1, or a retention). When the premium
         does not exceed the expected claims (net profit condition), ruin is certain: every
         probability is 1, with a warning and no simulation."""
-        return await handle(body, settings, pool, metrics)
+        return await pipeline.run(RUIN, body, context)
 
     return router

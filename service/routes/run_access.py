@@ -3,13 +3,11 @@ run up by id and answers 404, so that an access rule for runs applies to all of 
 
 from __future__ import annotations
 
-import asyncio
-
 from fastapi import HTTPException
 
 from service.errors import detail_entry
 from service.schemas.runs import RunBatchIn, RunItemDone, RunOut
-from service.worker import RunWorker, batch_view, run_view
+from service.worker import RunWorker
 
 NOT_FOUND_RUN = "no run with run_id '{run_id}'"
 
@@ -25,10 +23,10 @@ async def load_run(
 ) -> tuple[RunOut, RunBatchIn]:
     """The run's view (GET /v1/runs/{run_id}) and its stored batch; 404 when unknown or
     another token's (``owner``: the caller's token digest, None while auth is off)."""
-    snapshot = await asyncio.to_thread(worker.store.read_run, run_id, owner=owner)
-    if snapshot is None:
+    found = await worker.run_and_batch(run_id, owner=owner)
+    if found is None:
         raise run_not_found(run_id)
-    return run_view(*snapshot), batch_view(*snapshot)
+    return found
 
 
 def done_item(run: RunOut, batch: RunBatchIn, item_id: str) -> RunItemDone:

@@ -3,7 +3,6 @@
 # No "from __future__ import annotations": FastAPI must see the endpoint annotations,
 # which refer to names local to build_router.
 
-import asyncio
 import base64
 import binascii
 import json
@@ -18,11 +17,14 @@ from service.errors import detail_entry
 from service.examples import load_examples
 from service.routes.responses import ERROR_RESPONSES, ErrorBody
 from service.schemas.runs import RunAccepted, RunBatchIn, RunList, RunOut, RunStatusName
-from service.worker import BatchRejected, IdempotencyConflict, RunWorker, batch_view, summary
+from service.worker import BatchRejected, IdempotencyConflict, RunWorker, summary
 
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 PAGE_DEFAULT = 50
 PAGE_MAX = 500
+# SQLite integers are 64-bit; a larger offset overflowed in the store (500). Far beyond any
+# real listing, and JSON-safe.
+OFFSET_MAX = 2**53 - 1
 
 
 def _worker(request: Request) -> RunWorker:
@@ -68,7 +70,7 @@ def _decode_cursor(cursor: str) -> int:
         before = json.loads(base64.urlsafe_b64decode(cursor.encode()))["before"]
     except (binascii.Error, ValueError, TypeError, KeyError):
         before = None
-    if not isinstance(before, int) or isinstance(before, bool):
+    if not isinstance(before, int) or isinstance(before, bool) or not 0 <= before <= OFFSET_MAX:
         raise RequestValidationError([detail_entry(
             ["query", "cursor"], "is not a cursor returned by GET /v1/runs", "cursor_invalid"
         )])
@@ -132,7 +134,8 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
         limit: Annotated[int, Query(
             ge=1, le=PAGE_MAX, description="Most runs on the page.")] = PAGE_DEFAULT,
         offset: Annotated[int | None, Query(
-            ge=0, description="Skip this many runs (newest first); not with cursor.")] = None,
+            ge=0, le=OFFSET_MAX,
+            description="Skip this many runs (newest first); not with cursor.")] = None,
         cursor: Annotated[str | None, Query(
             description="next_cursor of the previous page; not with offset.")] = None,
     ) -> RunList:
@@ -143,10 +146,8 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
                 ["query", "cursor"], "give either offset or cursor, not both", "value_error"
             )])
         before = None if cursor is None else _decode_cursor(cursor)
-        page = await asyncio.to_thread(
-            worker.store.list_runs, status=status, limit=limit + 1, offset=offset or 0,
-            before_seq=before, owner=caller.owner,
-        )
+        page = await worker.list_runs(status=status, limit=limit + 1, offset=offset or 0,
+                                      before_seq=before, owner=caller.owner)
         more = len(page) > limit
         page = page[:limit]
         return RunList(
@@ -168,20 +169,19 @@ def build_router(*, examples: dict[str, dict[str, Any]]) -> APIRouter:
     async def get_run_batch(run_id: str, worker: WorkerDep, caller: CallerDep) -> RunBatchIn:
         """The batch as stored, with the seed of every item: POST it again to repeat the run
         exactly (same engine version, same figures)."""
-        snapshot = await asyncio.to_thread(worker.store.read_run, run_id, owner=caller.owner)
-        if snapshot is None:
+        batch = await worker.batch(run_id, owner=caller.owner)
+        if batch is None:
             raise _not_found(run_id)
-        return batch_view(*snapshot)
+        return batch
 
     @router.delete("/runs/{run_id}", response_model=RunOut, summary="Cancel a run",
                    responses=_NOT_FOUND)
     async def cancel_run(run_id: str, worker: WorkerDep, caller: CallerDep) -> RunOut:
         """Queued items are not run; running ones may finish and keep their results. A run
         that has already finished is left as it is (the call is safe to repeat)."""
-        if await asyncio.to_thread(worker.store.cancel_run, run_id, owner=caller.owner) is None:
+        view = await worker.cancel(run_id, owner=caller.owner)
+        if view is None:
             raise _not_found(run_id)
-        view = await worker.view(run_id, owner=caller.owner)
-        assert view is not None
         return view
 
     return router

@@ -226,6 +226,15 @@ class LineSpec(RequestModel):
         default=None,
         description="Per-claim limit in money units (0 < limit <= 10^18); null = unlimited.",
     )
+    factor_loadings: list[Finite] | None = Field(
+        default=None, max_length=50,
+        description="In a book with lines of obligors: the line's loadings b on "
+        "portfolio.factors (one per factor, b' R b < 1); its latent variable is Y = b . Z + "
+        "sqrt(1 - b' R b) e and its period loss F^{-1}(Phi(-Y)) with its own compound law F: "
+        "like an obligor's, the latent variable is adverse when low, so loadings of the same "
+        "sign make claims and defaults rise together. One dependence model for the mixed "
+        "book. Required there; refused elsewhere.",
+    )
     parameter_uncertainty: ParameterUncertaintySpec | None = Field(
         default=None,
         description="Uncertainty of the severity's parameters (e.g. from /v1/fit): the "
@@ -265,7 +274,8 @@ class PortfolioSpec(RequestModel):
         description="Lines of business (independent unless `dependence` is given); the "
         "portfolio loss S is the sum of their per-period aggregate losses. A line may instead "
         "be a line of obligors {label?, obligors: group | [group...]} (see "
-        "service/schemas/credit.py): then every line must be one, on portfolio.factors.",
+        "service/schemas/credit.py) on portfolio.factors; claim lines beside them load on the "
+        "same factors (factor_loadings).",
     )
     factors: FactorsSpec | None = Field(
         default=None, description="Systematic factors of the obligor groups.")
@@ -402,7 +412,8 @@ class ComputationOut(BaseModel):
     )
     std_dev: float | None = Field(
         description="Exact standard deviation of S in money units; null when infinite "
-        "(e.g. a Pareto line with alpha <= 2)."
+        "(e.g. a Pareto line with alpha <= 2) or not known to full accuracy (claim lines "
+        "loading on the credit factors of a mixed book)."
     )
     warnings: list[str] = Field(description="Things the caller should know about these figures.")
 

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import math
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, Field
+from pydantic import BaseModel, Field, field_validator
+from pydantic_core import PydanticCustomError
 
 from service.routes.responses import ErrorEntry
 from service.schemas.common import RequestModel
@@ -21,14 +23,42 @@ KIND_DESCRIPTION = (
 )
 
 
+def _non_finite(value: Any, path: str) -> str | None:
+    """The path of the first NaN or infinite number inside a parsed JSON value, if any."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return path
+    items = value.items() if isinstance(value, dict) else (
+        enumerate(value) if isinstance(value, list) else ())
+    for key, inner in items:
+        found = _non_finite(inner, f"{path}[{key}]" if isinstance(key, int) else f"{path}.{key}")
+        if found is not None:
+            return found
+    return None
+
+
 class RunItemIn(RequestModel):
     id: Label = Field(description="The caller's name for the item, unique within the batch.")
     kind: KindName = Field(description=KIND_DESCRIPTION)
     request: Any = Field(
         description="The body that the kind's synchronous endpoint takes. It is validated when "
         "the item runs: an invalid request fails that item only, with the 422 detail the "
-        "endpoint would give. A request without a seed gets one drawn at submission."
+        "endpoint would give. A request without a seed gets one drawn at submission. NaN, "
+        "Infinity and numbers beyond double precision (1e999) are refused at submission: the "
+        "stored batch is JSON, which cannot hold them."
     )
+
+    @field_validator("request")
+    @classmethod
+    def _storable(cls, request: Any) -> Any:
+        where = _non_finite(request, "request")
+        if where is not None:
+            raise PydanticCustomError(
+                "finite_number",
+                "{where} is NaN or infinite (or beyond double precision); a batch is stored as "
+                "JSON, which has no such numbers",
+                {"where": where},
+            )
+        return request
 
 
 class RunBatchIn(RequestModel):

@@ -90,3 +90,33 @@ def test_ruin_with_a_horizon_never_reports_a_zero_width_monte_carlo_interval():
     for e in res.estimates:
         assert not e.diagnostics.exact
         assert e.ci_low < e.ci_high and e.ci_low <= e.value <= e.ci_high <= 1.0
+
+
+def test_dependent_exceedance_passes_the_invariants(monkeypatch):
+    # A dependent estimator whose figure leaves its own interval is flagged and clipped like
+    # any other (core.invariants), and auto retries it with the next candidate.
+    import dataclasses
+
+    import numpy as np
+
+    from core.dependence import exceed
+    from core.dependence.copula import Copula
+
+    real = exceed._estimates
+
+    def broken(x, group, stats_, samples, name):
+        out = real(x, group, stats_, samples, name)
+        if name != "crude":
+            return out
+        return [(i, dataclasses.replace(e, value=1.5, ci_high=1.2)) for i, e in out]
+
+    monkeypatch.setattr(exceed, "_estimates", broken)
+    lines = [Line(count=Poisson(mean=3.0), severity=Gamma(shape=2.0, scale=1.0)),
+             Line(count=Poisson(mean=2.0), severity=Lognormal(mu=0.0, sigma=1.0))]
+    pf = Portfolio(lines=lines, dependence=Copula(kind="gaussian",
+                                                  correlation=np.array([[1, .5], [.5, 1]])))
+    res = exceedance(pf, [10.0], method="crude", precision=Precision(samples=5_000), seed=2)
+    e = res.estimates[0]
+    assert e.value == 1.0 and not e.diagnostics.reliable
+    assert "invariant violated" in e.diagnostics.reason
+    assert math.isfinite(res.std_dev)

@@ -3,7 +3,7 @@ tests/golden/*.json (the numpy.random known-value pattern).
 
 They guard "resubmit the stored batch, get the same figures": a refactor that reorders draws
 changes these numbers and fails here. The stored figures change only together with the engine
-version (core.ENGINE_VERSION, from the package metadata; pyproject.toml declares it). After a
+version (core.ENGINE_VERSION, read from pyproject.toml; see core/version.py). After a
 deliberate change of draws, bump the version in pyproject.toml and core/version.py, then
 regenerate:
 
@@ -170,10 +170,14 @@ def assert_same(got: Any, want: Any, where: str) -> None:
 
 
 def test_stored_figures_belong_to_the_declared_engine_version() -> None:
+    from core import ENGINE_VERSION
     from core.version import FALLBACK_VERSION
 
     version = declared_version()
     assert FALLBACK_VERSION == version, "core/version.py and pyproject.toml disagree"
+    # What responses carry: the declared version, even under an editable install whose
+    # metadata was written before the bump.
+    assert ENGINE_VERSION == version
     for name in CASES:
         stored = json.loads(path_of(name).read_text())
         assert stored["engine_version"] == version, (

@@ -88,3 +88,38 @@ def two_group_tail(groups: list[tuple[int, float, float, np.ndarray]], corr: np.
         return float(math.exp(-0.5 * (z * z + y * y)) / (2 * math.pi) * np.sum(pmf1 * tail))
 
     return float(integrate.dblquad(f, -9, 9, -9, 9, epsabs=0, epsrel=1e-6)[0])
+
+
+def poisson_gamma_sf(lam: float, shape: float, scale: float, y: np.ndarray) -> np.ndarray:
+    """P(S > y) for S a Poisson(lam) sum of gamma(shape, scale) claims: the series over the
+    claim count of gamma tails (a sum of n gamma claims is gamma(n shape); scipy.stats)."""
+    y = np.atleast_1d(np.asarray(y, dtype=float))
+    n = np.arange(1, int(lam + 40 * math.sqrt(lam) + 40))
+    w = stats.poisson.pmf(n, lam)
+    out = np.ones_like(y)
+    pos = y >= 0
+    out[pos] = (w[None, :] * stats.gamma.sf(y[pos, None], n[None, :] * shape,
+                                            scale=scale)).sum(axis=1)
+    return out
+
+
+def mixed_one_factor_tail(n: int, pd: float, rho: float, lgd: float, lam: float,
+                          shape: float, scale: float, b: float, x: float) -> float:
+    """P(L + S > x) for n obligors of exposure 1 (loading sqrt(rho), defaults when the latent
+    is below Phi^{-1}(pd)) beside a Poisson-gamma line whose latent Y = b Z + sqrt(1 - b^2) e
+    (the same factor Z; adverse when low like an obligor's) is mapped to its loss by the
+    exact compound quantile F^{-1}(Phi(-Y)): given Z the defaults are binomial and
+    S > x - k lgd iff -Y exceeds Phi^{-1}(F(x - k lgd)), a normal tail; integrated over Z
+    (scipy.integrate.quad). b = 0 makes the line independent: the convolution of the credit
+    loss law with the compound law."""
+    k = np.arange(n + 1)
+    c = stats.norm.ppf(pd)
+    f_line = np.clip(1.0 - poisson_gamma_sf(lam, shape, scale, x - k * lgd), 0.0, 1.0)
+    level = stats.norm.ppf(f_line)
+
+    def f(z: float) -> float:
+        p = stats.norm.cdf((c - math.sqrt(rho) * z) / math.sqrt(1.0 - rho))
+        cond = stats.norm.sf((level + b * z) / math.sqrt(1.0 - b * b))
+        return float((stats.binom.pmf(k, n, p) * cond).sum() * stats.norm.pdf(z))
+
+    return float(integrate.quad(f, -9, 9, limit=400, epsabs=0, epsrel=1e-9)[0])

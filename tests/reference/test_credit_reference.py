@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from credit_references import (
     independent_lattice_pmf,
+    mixed_one_factor_tail,
     one_factor_t_tail,
     one_factor_tail,
     two_group_tail,
@@ -152,3 +153,65 @@ def test_var_and_tvar_match_the_quadrature_law_and_euler_parts_sum_to_tvar() -> 
     a, b = parts
     se_a, se_b = ((p.ci_high - p.ci_low) / (2 * 1.959963984540054) for p in parts)
     assert abs(a.tvar_contribution - b.tvar_contribution) <= 4 * math.hypot(se_a, se_b)
+
+
+def _mixed(b: float) -> CreditModel:
+    from core import Gamma, Line, Poisson
+    from core.credit.lines import FactorLine
+
+    storm = Line(count=Poisson(mean=4.0), severity=Gamma(shape=2.0, scale=5.0), label="storm")
+    return CreditModel(groups=_one_factor().groups,
+                       lines=(FactorLine(line=storm, factor_loadings=(b,)),), factors=1)
+
+
+@pytest.mark.parametrize("b", [0.0, 0.5])
+@pytest.mark.parametrize("x", [150.0, 250.0])
+def test_mixed_book_matches_quadrature_over_the_factor(b: float, x: float) -> None:
+    # Reference: credit_references.mixed_one_factor_tail, binomial defaults given the factor
+    # and the Poisson-gamma line's exact compound law (a series of scipy gamma tails) mapped
+    # through its latent normal, integrated over the factor by scipy.integrate.quad; with
+    # b = 0 it is the convolution of the credit loss law with the independent compound law.
+    # P is near 1e-3 and 1e-6 (b = 0) and 4e-3 and 3e-5 (b = 0.5: claims rise with defaults).
+    ref = mixed_one_factor_tail(N, PD, RHO, LGD, 4.0, 2.0, 5.0, b, x)
+    e = credit_exceedance(_mixed(b), [x], precision=Precision(samples=40_000),
+                          seed=5).estimates[0]
+    assert e.std_error is not None and e.diagnostics.reliable, e.diagnostics.reason
+    assert abs(e.value - ref) <= 4 * e.std_error, (e.value, ref, e.std_error)
+    assert e.ci_low <= e.value <= e.ci_high
+
+
+def test_mixed_book_crude_matches_quadrature_and_zero_loadings_give_the_moments() -> None:
+    # Reference: as above (crude Monte Carlo, the indicator's exact binomial interval); the
+    # standard deviation of an independent line beside the credit loss is the root of the sum
+    # of the variances (the credit loss's by the bivariate-normal formula, the line's by the
+    # compound formula E N Var X + Var N (E X)^2).
+    ref = mixed_one_factor_tail(N, PD, RHO, LGD, 4.0, 2.0, 5.0, 0.0, 100.0)
+    res = credit_exceedance(_mixed(0.0), [100.0], method="crude",
+                            precision=Precision(samples=40_000), seed=5)
+    e = res.estimates[0]
+    assert e.std_error is not None and abs(e.value - ref) <= 4 * e.std_error
+    credit = credit_exceedance(_one_factor(), [100.0], precision=Precision(samples=500),
+                               seed=5)
+    line_var = 4.0 * 2.0 * 25.0 + 4.0 * 100.0  # E N Var X + Var N (E X)^2
+    assert abs(res.std_dev - math.sqrt(credit.std_dev**2 + line_var)) <= 1e-9 * res.std_dev
+    assert abs(res.mean - (4.5 + 40.0)) <= 1e-9
+
+
+def test_mixed_book_var_matches_quadrature_and_parts_sum_to_tvar() -> None:
+    # Reference: the 0.99 quantile of the quadrature law above (scipy.optimize.brentq on
+    # mixed_one_factor_tail); the Euler parts (group and line) sum to TVaR (full allocation).
+    from scipy import optimize
+
+    model = _mixed(0.5)
+    ref = optimize.brentq(lambda v: mixed_one_factor_tail(N, PD, RHO, LGD, 4.0, 2.0, 5.0,
+                                                          0.5, v) - 0.01, 60.0, 300.0,
+                          xtol=1e-6)
+    res = credit_tail(model, levels=[0.99], precision=Precision(samples=40_000), seed=6)
+    m = res.measures[0]
+    half = 0.5 * (m.var.ci_high - m.var.ci_low)
+    assert m.diagnostics.reliable
+    assert abs(m.var.value - ref) <= 2.0 * half, (m.var, ref)  # 2 half-widths = 4 SE
+    labels = [c.label for c in m.contributions]
+    assert len(labels) == 2 and labels[1] == "storm"
+    total = sum(c.tvar_contribution for c in m.contributions)
+    assert abs(total - m.tvar.value) <= 1e-12 * m.tvar.value

@@ -127,6 +127,25 @@ def test_equicorrelated_lognormals_match_common_factor_convolution() -> None:
     assert lo - 4 * e.std_error <= e.value <= hi + 4 * e.std_error, (e.value, lo, hi)
 
 
+def test_unequal_one_factor_lognormals_match_factor_convolution() -> None:
+    # Reference: a one-factor matrix with unequal loadings (valid, not equicorrelated):
+    # condition on the factor, convolve the independent amounts numerically with claims
+    # rounded down / up (an independent deterministic method, bench.dependence), integrate
+    # over the factor by the trapezoid rule. P is near 1e-7, where the allocation of samples
+    # among the pieces and the shared design-point shifts matter.
+    from bench.dependence import factor_reference
+
+    b = np.array([0.3, 0.45, 0.6, 0.7, 0.8, 0.9])
+    r = np.outer(b, b)
+    np.fill_diagonal(r, 1.0)
+    pf = _amounts([0.0] * 6, [1.0] * 6, r)
+    lo, hi = factor_reference(b, 1.0, 400.0, cells=8192)
+    e = exceedance(pf, [400.0], precision=Precision(samples=20_000), seed=6,
+                   method="conditional_is").estimates[0]
+    assert e.std_error is not None and e.diagnostics.reliable
+    assert lo - 4 * e.std_error <= e.value <= hi + 4 * e.std_error, (e.value, lo, hi)
+
+
 def _two_lines() -> list[Line]:
     return [Line(count=Poisson(mean=5.0), severity=Lognormal(mu=0.0, sigma=1.5), label="storm"),
             Line(count=Poisson(mean=20.0), severity=Gamma(shape=2.0, scale=1.0), label="motor")]
@@ -193,3 +212,58 @@ def test_student_t_copula_two_lognormals_match_quadrature() -> None:
     res = exceedance(pf, [x], precision=Precision(samples=20_000), seed=9)
     assert res.method == "mean_shift"
     _within(res.estimates[0], ref)
+
+
+def test_dependent_std_dev_of_two_gamma_amounts_matches_scipy_quadrature() -> None:
+    # Reference: Cov(X1, X2) = E[q1(Phi(Z1)) q2(Phi(Z2))] - E X1 E X2 for a bivariate normal
+    # (Z1, Z2) with correlation 0.6, by scipy.integrate.dblquad over the normal density with
+    # scipy.stats.gamma's quantiles (exact marginals; no lattice), and Var of each gamma.
+    rho = 0.6
+    laws = [stats.gamma(2.0, scale=3.0), stats.gamma(0.7, scale=10.0)]
+    cov = integrate.dblquad(
+        lambda z2, z1: float(laws[0].isf(stats.norm.sf(z1)) * laws[1].isf(stats.norm.sf(z2))
+                             * stats.multivariate_normal.pdf([z1, z2], cov=[[1, rho],
+                                                                             [rho, 1]])),
+        -8.0, 8.0, -8.0, 8.0, epsabs=1e-9, epsrel=1e-9)[0] - laws[0].mean() * laws[1].mean()
+    ref = math.sqrt(laws[0].var() + laws[1].var() + 2.0 * cov)
+    lines = [Line(count=Fixed(n=1), severity=Gamma(shape=2.0, scale=3.0)),
+             Line(count=Fixed(n=1), severity=Gamma(shape=0.7, scale=10.0))]
+    pf = Portfolio(lines=lines, dependence=Copula(kind="gaussian",
+                                                  correlation=np.array([[1, rho], [rho, 1]])))
+    res = exceedance(pf, [60.0], precision=Precision(samples=2_000), seed=3)
+    assert abs(res.std_dev - ref) <= 1e-4 * ref, (res.std_dev, ref)
+
+
+def test_dependent_std_dev_of_compound_lines_identity_is_the_compound_formula() -> None:
+    # Reference: with the identity correlation the lines are independent, so Var S is the sum
+    # of the compound variances E[N] Var X + Var N (E X)^2 (a closed form).
+    lines = _two_lines()
+    pf = Portfolio(lines=lines, dependence=Copula(kind="gaussian", correlation=np.eye(2)))
+    ref = math.sqrt(sum(line.variance for line in lines))
+    res = exceedance(pf, [150.0], precision=Precision(samples=2_000), seed=3)
+    assert abs(res.std_dev - ref) <= 1e-3 * ref, (res.std_dev, ref)
+    tail = tail_estimates(pf, levels=[0.99], precision=Precision(samples=2_000), seed=3)
+    assert abs(tail.std_dev - ref) <= 1e-3 * ref, (tail.std_dev, ref)
+
+
+def test_dependent_compound_std_dev_exceeds_the_independent_one_and_matches_sampling() -> None:
+    # Reference: the sample standard deviation of crude draws of (S_1, S_2) by the copula
+    # (independent of the quadrature; the lattice quantiles are shared, so this checks the
+    # quadrature), within 4 of its standard errors (the standard error of
+    # a sample variance, sqrt((m4 - s^4) / n), by the delta method for s).
+    from core.dependence.coupled import Coupled
+    from core.dependence.marginals import line_quantiles
+
+    pf = Portfolio(lines=_two_lines(), dependence=Copula(
+        kind="gaussian", correlation=np.array([[1.0, 0.6], [0.6, 1.0]])))
+    sd = exceedance(pf, [400.0], precision=Precision(samples=2_000), seed=3).std_dev
+    model = Coupled(pf.dependence, tuple(line_quantiles(pf, 1e-12)))  # type: ignore[arg-type]
+    rng = np.random.default_rng(11)
+    n = 400_000
+    lo, up = model.losses(rng.standard_normal((n, 2)), np.ones(n))
+    s = np.where(np.isfinite(up), 0.5 * (lo + up), lo).sum(axis=1)
+    c = s - s.mean()
+    var = float(np.mean(c**2))
+    se_sd = math.sqrt((float(np.mean(c**4)) - var**2) / n) / (2.0 * math.sqrt(var))
+    assert sd > 1.1 * Portfolio(lines=_two_lines()).std_dev
+    assert abs(sd - math.sqrt(var)) <= 4 * se_sd, (sd, math.sqrt(var), se_sd)

@@ -23,7 +23,7 @@ import pytest
 from headless_browser import Browser, PageVisit, chromium_path
 
 from service import charts
-from service.kinds import KINDS
+from service.resources import KINDS
 from service.settings import DEFAULT_EXAMPLES_DIR
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -116,7 +116,7 @@ def test_run_item_chart_and_its_errors(
 def test_openapi_lists_the_picture_routes_with_every_status(client: TestClient) -> None:
     paths = client.get("/openapi.json").json()["paths"]
     item = paths["/v1/runs/{run_id}/items/{item_id}/chart"]["get"]
-    assert set(item["responses"]) == {"200", "401", "404", "409", "422"}
+    assert set(item["responses"]) == {"200", "401", "404", "409", "422", "500"}
     assert set(item["responses"]["200"]["content"]) == {"image/svg+xml", "image/png"}
     for resource in ("exceedance", "risk-measures", "layers", "ruin"):
         post = paths[f"/v1/{resource}/chart"]["post"]

@@ -142,7 +142,9 @@ def test_refusals_name_the_field(client: TestClient) -> None:
     mixed = copy.deepcopy(ONE_FACTOR)
     mixed["lines"].append({"count": {"kind": "fixed", "n": 1},
                            "severity": {"family": "exponential", "mean": 1.0}})
-    assert _refusal(client, mixed)["loc"] == [*base, 1]
+    # A claim line beside obligors loads on the factors (tests/service/test_mixed_book_api.py).
+    e = _refusal(client, mixed)
+    assert e["loc"] == [*base, 1, "factor_loadings"] and "required" in e["msg"]
     assert _refusal(client, ONE_FACTOR, method="recursion")["loc"] == ["body", "method"]
     assert _refusal(client, ONE_FACTOR, method="tilted")["loc"] == ["body", "method"]
 

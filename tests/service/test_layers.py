@@ -11,7 +11,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from service.kinds import KINDS
+from service import pipeline
+from service.resources import KINDS
 
 ROUTE = "/v1/layers"
 CONTRACT_LAYER_FIELDS = {
@@ -199,8 +200,8 @@ def test_batch_handler_gives_the_endpoint_answer(client):
     over_http = client.post(ROUTE, json=body).json()
     kind = KINDS["layers"]
     state = client.app.state
-    direct = asyncio.run(kind.handle(kind.request.model_validate(body), state.settings,
-                                     state.pool, state.metrics))
+    context = pipeline.Context(settings=state.settings, pool=state.pool, metrics=state.metrics)
+    direct = asyncio.run(pipeline.run(kind, kind.request.model_validate(body), context))
     over_http.pop("elapsed_s")
     assert direct.model_dump(exclude={"elapsed_s"}) == over_http
 

@@ -15,8 +15,8 @@ from report_reading import ReportDom, read
 from service import charts
 from service.charts.readings import readings
 from service.cli import main
-from service.kinds import KINDS
 from service.report import build_report
+from service.resources import KINDS
 from service.schemas.runs import RunBatchIn, RunItemDone, RunOut
 from service.settings import DEFAULT_EXAMPLES_DIR
 

@@ -12,8 +12,8 @@ import pytest
 from scipy import stats
 
 from core.errors import LimitError, ParameterError
-from service import translate
-from service.kinds import KINDS
+from service import pipeline, translate
+from service.resources import KINDS
 from service.schemas.risk_measures import RiskMeasuresRequest
 
 ROUTE = "/v1/risk-measures"
@@ -142,13 +142,13 @@ def test_same_seed_gives_identical_figures_and_a_drawn_seed_replays(client):
 
 
 def test_batch_handler_gives_the_endpoint_answer(client):
-    # KINDS["risk_measures"].handle is what batch runs call: the same body as over HTTP.
+    # pipeline.run(KINDS["risk_measures"], ...) is what batch runs call: the same body as over HTTP.
     body = _request(return_periods=[50.0], losses=[55.0])
     over_http = client.post(ROUTE, json=body).json()
     kind = KINDS["risk_measures"]
     state = client.app.state
-    direct = asyncio.run(kind.handle(kind.request.model_validate(body), state.settings,
-                                     state.pool, state.metrics))
+    context = pipeline.Context(settings=state.settings, pool=state.pool, metrics=state.metrics)
+    direct = asyncio.run(pipeline.run(kind, kind.request.model_validate(body), context))
     assert isinstance(direct, kind.response) and kind.request is RiskMeasuresRequest
     over_http.pop("elapsed_s")
     assert direct.model_dump(exclude={"elapsed_s"}) == over_http
@@ -271,6 +271,6 @@ def test_recursion_bounds_bracket_the_gamma_law(client):
 def test_engine_errors_about_its_grid_points_name_the_request_field():
     # The engine calls its points "thresholds"; a risk-measures request has none.
     error = translate.renamed(LimitError("thresholds.3", "too far out"), "thresholds", "losses")
-    assert (type(error), error.parameter, error.message) == (LimitError, "losses", "too far out")
+    assert (type(error), error.loc, error.message) == (LimitError, ("losses",), "too far out")
     other = ParameterError("precision.samples", "x")
     assert translate.renamed(other, "thresholds", "losses") is other

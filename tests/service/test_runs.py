@@ -12,7 +12,7 @@ from fastapi.testclient import TestClient
 from scipy import stats
 
 import core
-from service.kinds import KINDS
+from service.resources import KINDS
 from service.settings import DEFAULT_EXAMPLES_DIR
 
 EXAMPLE = DEFAULT_EXAMPLES_DIR / "runs_month_end.json"

@@ -7,7 +7,7 @@ import pytest
 import core
 from core.errors import LimitError, MethodError, ParameterError
 from service import translate
-from service.errors import error_type, parameter_loc
+from service.errors import error_type, problem
 from service.schemas.common import (
     LineSpec,
     LognormalSeverity,
@@ -61,17 +61,17 @@ def test_core_error_while_building_names_the_request_path():
     ), bad])
     with pytest.raises(ParameterError) as raised:
         translate.portfolio(spec)
-    assert raised.value.parameter == "portfolio.lines[1].severity.sigma"
-    assert parameter_loc(raised.value.parameter) == [
+    assert raised.value.loc == ("portfolio", "lines", 1, "severity", "sigma")
+    assert problem(raised.value).detail[0]["loc"] == [
         "body", "portfolio", "lines", 1, "severity", "sigma",
     ]
 
 
 def test_engine_paths_relative_to_the_portfolio_are_rebased():
     rebased = translate.engine_error_path(MethodError("lines[2].severity", "heavy"))
-    assert (type(rebased), rebased.parameter) == (MethodError, "portfolio.lines[2].severity")
+    assert (type(rebased), rebased.loc) == (MethodError, ("portfolio", "lines", 2, "severity"))
     kept = translate.engine_error_path(ParameterError("precision.samples", "x"))
-    assert kept.parameter == "precision.samples"
+    assert kept.loc == ("precision", "samples")
 
 
 def test_error_types_name_the_kind_of_core_error():
@@ -79,4 +79,6 @@ def test_error_types_name_the_kind_of_core_error():
                                     LimitError("a", "b"))] == [
         "parameter_error", "method_error", "limit_exceeded",
     ]
-    assert parameter_loc("thresholds.3") == ["body", "thresholds", 3]
+    # The dotted text core raise sites still use is split once, in core.errors, into a tuple.
+    assert ParameterError("thresholds.3", "x").loc == ("thresholds", 3)
+    assert ParameterError(("lines", 0, "severity"), "x").parameter == "lines[0].severity"

@@ -1,0 +1,66 @@
+"""Schema-valid models at the edges that used to end in an uncaught exception (issue 13)."""
+
+from __future__ import annotations
+
+import time
+
+import pytest
+
+import core
+from core import measures
+from core.estimators import tilted
+
+
+@pytest.mark.parametrize("count", [core.NegativeBinomial(mean=2.0, dispersion=2.0),
+                                   core.Poisson(mean=2.0)])
+@pytest.mark.parametrize("severity", [core.Exponential(mean=1.0),
+                                      core.Pareto(alpha=2.0, scale=1.0)])
+def test_a_per_claim_limit_far_below_the_claims_gives_the_capped_answer(count, severity):
+    # Every claim pays the limit 1.7e-272 (P(X > limit) = 1 in double precision), so the
+    # expected aggregate loss is E[N] x limit exactly (a fact of the model). It was an
+    # IndexError: the quadrature grid of the capped law was empty.
+    limit = 1.7e-272
+    model = core.Portfolio(lines=[core.Line(count=count, severity=severity, limit=limit)])
+    result = measures.tail_estimates(model, layers=[measures.Layer(attachment=0.0, limit=1.0)],
+                                     precision=core.Precision(samples=1000), seed=1)
+    loss = result.layers[0].expected_loss
+    assert loss.ci_low <= 2.0 * limit <= loss.ci_high
+
+
+def test_ruin_with_a_tiny_retention_is_estimated():
+    # psi(0) = 1 / (1 + theta) for any claim law (Pollaczek-Khinchine: psi(0) = rho), here with
+    # every claim capped at 1e-10; it was an IndexError in the tilt of the capped lognormal.
+    process = core.SurplusProcess(claim_rate=1.0, severity=core.Lognormal(mu=0.0, sigma=1.0),
+                                  loading=0.2, retention=1e-10)
+    result = core.ruin_probability(process, [0.0], precision=core.Precision(samples=1000), seed=1)
+    e = result.estimates[0]
+    assert e.ci_low <= 1.0 / 1.2 <= e.ci_high
+
+
+def test_the_stepwise_tilt_of_a_bounded_claim_law_has_the_right_mean():
+    # GPD with xi = -10 is bounded by scale/10 = 0.1; its mean is scale/(1 - xi) = 1/11 (closed
+    # form of the generalized Pareto mean). kappa'(0) was 1.2e16 (cells stretched past the
+    # top), which ended in a brentq ValueError reported as internal text.
+    model = core.Portfolio(lines=[core.Line(count=core.Poisson(mean=1.0),
+                                            severity=core.GeneralizedPareto(xi=-10.0, scale=1.0))])
+    assert tilted._slope(model, 0.0) == pytest.approx(1.0 / 11.0, rel=1e-3)
+    result = measures.tail_estimates(model, levels=[0.9], precision=core.Precision(samples=2000),
+                                     seed=1)
+    assert 0.0 < result.measures[0].var.value <= result.measures[0].tvar.value
+
+
+def test_the_capital_search_stops_at_the_time_limit_and_says_so():
+    # Target 1e-300 puts the search's capitals near 1.4e7: one block of Siegmund paths took
+    # over two minutes past a 2 s limit. Now the search stops inside the block. The figures
+    # before it (adjustment coefficient, one block at the asked capitals) still run, so the
+    # bound allows them a few seconds (measured about 5 s on 2 busy cores).
+    process = core.SurplusProcess(claim_rate=400.0, severity=core.Gamma(shape=2.5, scale=1600.0),
+                                  loading=0.15, retention=12000.0)
+    began = time.monotonic()
+    result = core.ruin_probability(process, [50000.0], target_probability=1e-300,
+                       precision=core.Precision(time_limit_s=1.0), seed=1)
+    assert time.monotonic() - began < 20.0
+    assert result.stopped_by == "time_limit"
+    assert result.capital_for_target is not None
+    assert result.capital_for_target.ci_high is None
+    assert any("time limit" in w and "capital for target" in w for w in result.warnings)

@@ -191,8 +191,9 @@ def refine(portfolio: Portfolio, x: float, target: float, deadline: float | None
         if fine <= cells:
             break
         if deadline is not None:
-            # cells + a transform at least twice as long, per line
-            left = (deadline - time.monotonic()) * (0.5 if first else 0.9)
+            # cells + a transform at least twice as long, per line; a margin for bursts of
+            # load on a shared machine (a three-line book overran 10 s by 48% at 0.9)
+            left = (deadline - time.monotonic()) * (0.4 if first else 0.6)
             if (1 + ratio) * fine * lines * rate > left:
                 fine = int(left / ((1 + ratio) * lines * rate))
                 if fine < 2 * cells:

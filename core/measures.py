@@ -40,7 +40,7 @@ from core.estimators import registry, select
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.exceedance import check_seed
 from core.invariants import check_tail
-from core.levels import Layer, check_levels, guess_var
+from core.levels import Layer, check_levels, guess_var, largest_claim_var
 from core.portfolio import Portfolio
 from core.precision import GroupRun, Precision, run_group
 from core.results import (
@@ -296,7 +296,8 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
         std_dev = portfolio.std_dev
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
-    measures, layer_out, notes = check_tail(measures, layer_out)
+    floors = [largest_claim_var(portfolio, float(level)) for level in q]
+    measures, layer_out, notes = check_tail(measures, layer_out, floors)
     warnings += notes
     if run.stopped_by == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")

@@ -187,7 +187,7 @@ def tail_estimates(
         return degenerate.tail(q, layers, losses, seed, start)
     only_crude = _bounded_figures_of_infinite_mean(portfolio, q, layers, method)
     if only_crude:
-        method = "crude"
+        method = registry.model_itself()
     if (method != registry.AUTO and method in registry.names()
             and registry.get(method).deterministic):
         if portfolio.dependence is not None:
@@ -222,13 +222,13 @@ def _bounded_figures_of_infinite_mean(portfolio: Portfolio, q: np.ndarray,
     TVaR and unlimited layers are left to the estimators' own refusal (they do not exist)."""
     if math.isfinite(portfolio.mean) or q.size or any(ly.limit is None for ly in layers):
         return False
-    if method not in ("auto", "crude"):
+    if method not in (registry.AUTO, registry.model_itself()):
         raise MethodError(
             "method",
             f"{method} cannot estimate layers of a portfolio with an infinite mean claim (it "
             "differences two infinite stop-loss transforms); use crude or auto",
         )
-    return method == "auto"
+    return method == registry.AUTO
 
 
 def _extra_points(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:
@@ -360,7 +360,9 @@ def _run(name: str, portfolio: Portfolio, a: np.ndarray, q: np.ndarray, layers: 
     if portfolio.dependence is not None:
         values = _dependent_values(name, portfolio, points, anchors, seed,
                                    euler=euler_points(portfolio, g=a.size))
-        stream_name = f"dependent:{name}"
+        from core.dependence.engine import DEPENDENT, estimator
+
+        stream_name = estimator(name).stream_for(DEPENDENT)
     else:
         values = registry.get(name).contributions(portfolio, points, anchors, seed)
         stream_name = registry.get(name).stream

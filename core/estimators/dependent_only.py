@@ -5,12 +5,7 @@ samplers live in core.dependence (coupled.py, shift.py, radial.py), whose dispat
 
 from __future__ import annotations
 
-from collections.abc import Sequence
-
-import numpy as np
-
 from core.errors import MethodError
-from core.estimators.base import BlockFn, Group
 from core.estimators.estimator import Estimator, ModelKind
 from core.portfolio import Portfolio
 
@@ -23,13 +18,3 @@ class DependentOnly(Estimator):
         if getattr(portfolio, "dependence", None) is None:
             raise MethodError("method", f"{self.name} applies to {self.what} "
                                         "(portfolio.dependence); use auto or crude")
-
-    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
-             deadline: float | None = None) -> list[Group]:
-        self.check(portfolio)
-        return super().plan(portfolio, thresholds, seed, deadline=deadline)
-
-    def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
-                      seed: int) -> BlockFn:
-        self.check(portfolio)
-        return super().contributions(portfolio, points, anchors, seed)

@@ -111,7 +111,9 @@ class Estimator:
     def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
              deadline: float | None = None) -> list[Group]:
         """Groups of thresholds sharing one sample set, for P(S > x); `deadline` (a
-        time.monotonic() value) bounds any adaptation done while planning."""
+        time.monotonic() value) bounds any adaptation done while planning. Here (a method
+        whose sampler lives in its own dispatcher): its own refusal first, as it says why."""
+        self.check(portfolio)
         raise MethodError("method", f"{self.name} cannot estimate exceedance probabilities")
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
@@ -119,6 +121,7 @@ class Estimator:
         """Per-sample contributions at `points` for a block: an (m, 2 G) array, the first G
         columns unbiased for P(S > a_g), the last G for E[(S - a_g)+]. `anchors` are where the
         interest lies (VaR guesses, layer points), for proposals that adapt to them."""
+        self.check(portfolio)
         raise MethodError("method", f"{self.name} cannot estimate risk measures")
 
     def exceedance_bounds(self, portfolio: Portfolio, thresholds: np.ndarray,

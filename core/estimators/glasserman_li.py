@@ -5,12 +5,7 @@ attributes here."""
 
 from __future__ import annotations
 
-from collections.abc import Sequence
-
-import numpy as np
-
 from core.errors import MethodError
-from core.estimators.base import BlockFn, Group
 from core.estimators.estimator import Estimator, ModelKind
 from core.portfolio import Portfolio
 
@@ -24,16 +19,6 @@ class GlassermanLi(Estimator):
         if isinstance(portfolio, Portfolio):  # claim lines only (a CreditModel is not one)
             raise MethodError("method", "glasserman_li applies to portfolios with lines of "
                                         "obligors (portfolio.factors); use auto or crude")
-
-    def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
-             deadline: float | None = None) -> list[Group]:
-        self.check(portfolio)
-        return super().plan(portfolio, thresholds, seed, deadline=deadline)
-
-    def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
-                      seed: int) -> BlockFn:
-        self.check(portfolio)
-        return super().contributions(portfolio, points, anchors, seed)
 
 
 ESTIMATOR = GlassermanLi()

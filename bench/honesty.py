@@ -13,8 +13,11 @@ References (each outside the engine):
 - S = N for Poisson(5) claims of constant size 1: scipy.stats.poisson.
 - Poisson(5) normal(-10, 1): given N = n, S is exactly normal(-10 n, n) (S = 0 when n = 0);
   the law of S is that Poisson mixture, summed with scipy (terms to n = 60, tail < 1e-25).
-- Poisson(5) lognormal(0, 10) at 0.999: the order-statistic interval of the empirical quantile
-  of 4e6 plain numpy draws of S (1e6 with --quick), seeded, independent of the engine's code.
+- Poisson(5) lognormal(0, 10) at 0.999: a rigorous VaR bracket from Poisson thinning
+  (bench.references.poisson_var_bracket, scipy only); the order-statistic interval of the
+  empirical quantile of 4e6 plain numpy draws of S (1e6 with --quick) is printed beside it.
+- Poisson(100) gamma(2) and binomial(200, 0.1) gamma(2): given N = n, S is gamma(2n) exactly,
+  so P(S > x) = sum_n P(N = n) Q(2n, x) (scipy).
 - 20 Pareto(1.1) claims: the subexponential expansion n F(x) + n (n - 1) mu f(x) (Omey and
   Willekens 1986, for 1 < alpha < 2 the next terms are O(x^(1 - 2 alpha))): relative error
   below 1e-5 at x ~ 3e8.
@@ -31,14 +34,17 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg, stats
+from scipy import linalg, special, stats
 
+from bench.references import poisson_var_bracket
 from core import (
     Binomial,
+    Exponential,
     Fixed,
     Gamma,
     Line,
     Lognormal,
+    NegativeBinomial,
     Normal,
     Pareto,
     Poisson,
@@ -64,6 +70,8 @@ class Row:
     reliable: bool | None
     seconds: float
     note: str = ""
+    ref_low: float | None = None  # a rigorous bracket of the truth, when there is one
+    ref_high: float | None = None
 
     @property
     def z(self) -> float | None:
@@ -82,6 +90,10 @@ class Row:
             return "WRONG (outside [0, 1])" if self.reliable else "flagged (outside [0, 1])"
         if not self.reliable:
             return "flagged"
+        if self.ref_low is not None and self.ref_high is not None:
+            assert self.low is not None and self.high is not None
+            meets = self.low <= self.ref_high and self.high >= self.ref_low
+            return "ok" if meets else "WRONG (interval misses the bracket)"
         if self.reference is None:
             return "ok (no reference)"
         if self.se:
@@ -202,6 +214,19 @@ def crude_quantile(lam: float, sigma: float, level: float, draws: int, seed: int
     return (float(out[int(k)]), float(out[int(k - half)]), float(out[int(k + half) + 1]))
 
 
+def gamma_mixture(count: str, n: float, x: float, p: float = 0.0) -> float:
+    """P(S > x) for gamma(2, 1) claims: given N = k, S ~ gamma(2k, 1) (scipy)."""
+    k = np.arange(1, 600)
+    w = stats.poisson.pmf(k, n) if count == "poisson" else stats.binom.pmf(k, int(n), p)
+    return float(w @ special.gammaincc(2.0 * k, x))
+
+
+def _with_width(r: Row) -> Row:
+    if r.estimate and r.low is not None and r.high is not None:
+        r.note += f"; half-width {(r.high - r.low) / 2 / r.estimate:.2g}"
+    return r
+
+
 # --- the cases ----------------------------------------------------------------------------
 def cases(quick: bool) -> list[Row]:
     rows: list[Row] = []
@@ -261,12 +286,18 @@ def later_cases(quick: bool, p: Precision, n_big: int) -> list[Row]:
     # 4. Extreme tail: Poisson(5) lognormal(0, 10) at 0.999.
     draws = 1_000_000 if quick else 4_000_000
     v_ref, v_lo, v_hi = crude_quantile(5.0, 10.0, 0.999, draws, seed=2026)
+    a, b = poisson_var_bracket(5.0, stats.lognorm(10.0), 0.999, 1e10, 1e20)
     heavy = _single(Poisson(mean=5.0), Lognormal(mu=0.0, sigma=10.0))
     for method in ("auto", "recursion"):
-        got = measure_rows("Poisson(5) LN(0,10)", heavy, [0.999], [v_ref], [None], method, p)
-        for r in got:
-            r.note = f"reference VaR in [{v_lo:.3g}, {v_hi:.3g}]"
-        rows += got
+        for samples in ((10_000, n_big) if method == "auto" else (n_big,)):
+            got = measure_rows(f"Poisson(5) LN(0,10) n={samples:g}", heavy, [0.999], [v_ref],
+                               [None], method, Precision(samples=samples))
+            for r in got:
+                if r.figure.startswith("VaR"):
+                    r.ref_low, r.ref_high = a, b
+                r.note = (f"VaR bracket ({a:.4g}, {b:.4g}]; {draws:g} draws: "
+                          f"[{v_lo:.3g}, {v_hi:.3g}]")
+            rows += got
 
     # 5. Negative claims: Poisson(5) normal(-10, 1).
     neg = _single(Poisson(mean=5.0), Normal(mean=-10.0, sd=1.0))
@@ -308,22 +339,46 @@ def later_cases(quick: bool, p: Precision, n_big: int) -> list[Row]:
             rows.append(_refused(f"ruin gamma(3) [{method}]", "P(ruin)", err,
                                  time.monotonic() - t0))
 
-    # 8. Recursion to 5e-4 relative width within 10 s on single-line books.
+    # 8. Recursion to 5e-4 and 1e-3 relative half-width within 10 s: single-line books and
+    # a three-line book (all at mean + 4 sd).
     books = {
         "Poisson(5) LN(0,1.5)": _single(Poisson(mean=5.0), Lognormal(mu=0.0, sigma=1.5)),
         "Poisson(100) gamma(2)": _single(Poisson(mean=100.0), Gamma(shape=2.0, scale=1.0)),
+        "NB(20,3) LN(1,1.2)": _single(NegativeBinomial(mean=20.0, dispersion=3.0),
+                                      Lognormal(mu=1.0, sigma=1.2)),
+        "three lines": Portfolio(lines=[
+            Line(count=Poisson(mean=5.0), severity=Lognormal(mu=0.0, sigma=1.5)),
+            Line(count=Poisson(mean=100.0), severity=Gamma(shape=2.0, scale=1.0)),
+            Line(count=NegativeBinomial(mean=20.0, dispersion=3.0),
+                 severity=Lognormal(mu=1.0, sigma=1.2))]),
     }
-    for name, book in books.items():
-        xq = float(book.mean + 4 * book.std_dev)
-        rows += exceed_rows(name, book, [xq], [None], "recursion",  # type: ignore[list-item]
-                            Precision(relative_error=5e-4, time_limit_s=10.0))
+    for target in (5e-4, 1e-3):
+        for name, book in books.items():
+            xq = float(book.mean + 4 * book.std_dev)
+            ref = gamma_mixture("poisson", 100.0, xq) if "gamma" in name else None
+            got = exceed_rows(f"{name} rel {target:g}", book, [xq],
+                              [ref],  # type: ignore[list-item]
+                              "recursion", Precision(relative_error=target, time_limit_s=10.0))
+            rows += [_with_width(r) for r in got]
 
     # 9. conditional_is on a binomial gamma book: cost per 1e5 samples.
     binom = _single(Binomial(trials=200, probability=0.1), Gamma(shape=2.0, scale=1.0))
     rows += exceed_rows("Binomial(200,0.1) gamma(2)", binom, [90.0],
-                        [None], "conditional_is", Precision(samples=n_big))  # type: ignore[list-item]
+                        [gamma_mixture("binomial", 200.0, 90.0, 0.1)], "conditional_is",
+                        Precision(samples=n_big))
 
-    # 10. Exact-looking Monte Carlo: a retention of 1e18 (no claim ever pays).
+    # 10. Exact-looking Monte Carlo: negative loading with a horizon (every path is ruined in
+    # 5,000: a one-sided bound, not 1.0-1.0), and a retention of 1e18 (no claim ever pays).
+    neg_proc = SurplusProcess(claim_rate=1.0, severity=Exponential(mean=1.0), loading=-0.2)
+    for method in ("auto", "crude"):
+        t0 = time.monotonic()
+        res = ruin(neg_proc, [5.0], horizon=1000.0, method=method,
+                   precision=Precision(samples=5_000), seed=3)
+        for e in res.estimates:
+            rows.append(Row(f"ruin exp loading -0.2 T=1000 [{res.method}]", "P(ruin | u=5)",
+                            e.value, e.ci_low, e.ci_high, e.std_error, None,
+                            e.diagnostics.reliable, time.monotonic() - t0,
+                            note=f"exact {e.diagnostics.exact}"))
     far = _single(Poisson(mean=5.0), Pareto(alpha=1.0, scale=1.0), retention=1e18)
     rows += exceed_rows("Pareto(1) retention 1e18", far, [1.0],
                         [float(-math.expm1(-5.0 / (1.0 + 1e18 + 1.0)))], "auto", p)

@@ -52,6 +52,7 @@ from core import (
     Precision,
 )
 from core.estimators import registry
+from core.estimators.estimator import ModelKind
 from core.exceedance import exceedance
 from core.recursion import exceedance_bounds
 
@@ -139,7 +140,8 @@ CASES: tuple[Case, ...] = (
 
 
 # The Monte Carlo estimators of the registry, then auto (the columns of the tables).
-ESTIMATORS = (*(e.name for e in registry.estimators() if not e.deterministic), "auto")
+ESTIMATORS = (*(e.name for e in registry.estimators()
+                if not e.deterministic and ModelKind.CLAIMS in e.serves), "auto")
 
 
 def methods_for(portfolio: Portfolio) -> list[str]:

@@ -138,3 +138,43 @@ def fixed_lognormal_tail(n: int, mu: float, sigma: float, x: float, h: float) ->
     s = np.arange(size) * h
     tail = np.where(s < x, dist.sf(np.maximum(x - s, 0.0)), 1.0)
     return float(law @ tail) + float((n - 1) * dist.sf(size // 2 * h))
+
+
+def poisson_sum_bounds(lam: float, dist: stats.rv_continuous, v: float, eps: float
+                       ) -> tuple[float, float]:
+    """Rigorous (lower, upper) bounds of P(S > v) for a compound Poisson(lam) sum of claims
+    >= 0 with law `dist`, from Poisson thinning alone (scipy, no engine code).
+
+    Claims above t = eps v are a Poisson(lam s) count, s = sf(t), independent of the rest, whose
+    count is Poisson(lam (1 - s)). Lower: P(S > v) >= P(some claim > v) = 1 - exp(-lam sf(v)).
+    Upper: with no claim above t, S > v needs more than 1/eps small claims; with exactly one
+    big claim Y and k small ones, S > v needs Y > v - k t; two or more big claims: bound 1.
+    """
+    s = float(dist.sf(eps * v))
+    small = lam * (1.0 - s)
+    lower = -math.expm1(-lam * float(dist.sf(v)))
+    k = np.arange(0, int(1.0 / eps) + 1)
+    one_big = lam * math.exp(-lam * s) * float(
+        stats.poisson.pmf(k, small) @ dist.sf(np.maximum(v - k * eps * v, eps * v)))
+    none_big = math.exp(-lam * s) * float(stats.poisson.sf(int(1.0 / eps), small))
+    two_big = -math.expm1(-lam * s) - lam * s * math.exp(-lam * s)
+    return lower, min(1.0, none_big + one_big + two_big)
+
+
+def poisson_var_bracket(lam: float, dist: stats.rv_continuous, level: float, lo: float,
+                        hi: float, eps: float = 0.005) -> tuple[float, float]:
+    """(a, b) with a < VaR_level(S) <= b from poisson_sum_bounds, by bisection in log v:
+    a has lower bound > 1 - level (so VaR > a), b has upper bound <= 1 - level."""
+    tail = 1.0 - level
+
+    def search(side: int) -> float:
+        a, b = math.log(lo), math.log(hi)
+        for _ in range(100):
+            mid = 0.5 * (a + b)
+            if poisson_sum_bounds(lam, dist, math.exp(mid), eps)[side] > tail:
+                a = mid
+            else:
+                b = mid
+        return math.exp(a if side == 0 else b)
+
+    return search(0), search(1)

@@ -141,8 +141,10 @@ def _measure(curves: _Curves, q: float) -> MeasureEstimate:
     g = int(np.clip(np.searchsorted(a, v if v is not None else a[0]), 0, a.size - 1))
     diag = curves.diagnostics[g]
     if v is None:
-        nan_safe = float(a[-1])
-        var = Interval(value=nan_safe, ci_low=float(a[0]), ci_high=nan_safe)
+        if curves.p[0] < 1.0 - q:  # below the grid: the VaR is in [0, a[0]] (losses >= 0)
+            var = Interval(value=float(a[0]), ci_low=0.0, ci_high=float(a[0]))
+        else:  # past its top
+            var = Interval(value=float(a[-1]), ci_low=float(a[0]), ci_high=float(a[-1]))
         why = (f"the VaR is not bracketed by the estimation grid [{a[0]:.4g}, {a[-1]:.4g}]: "
                "the figure is only the grid's edge")
         return MeasureEstimate(level=q, var=var, tvar=var, diagnostics=flagged(diag, why))

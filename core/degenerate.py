@@ -5,10 +5,14 @@ sampled: P(S > x) is 1 for x < 0 and 0 for x >= 0, VaR and TVaR are 0 at every l
 layer attaching at a >= 0 is never hit. The estimators cannot be used here (the conditional
 one needs a size-biased count, E[N] > 0; the grids need a positive scale), and their answer
 would be a sampled "no hit" bound where the exact answer is known.
+
+A portfolio with an atom at zero (P(S = 0) > 0, e.g. a Poisson count) has the same exact
+answer for the low levels: VaR_q = 0 and TVaR_q = E[S] / (1 - q) for q <= P(S = 0).
 """
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Sequence
 
@@ -81,3 +85,29 @@ def tail(levels: np.ndarray, layers: Sequence[Layer], losses: Sequence[float], s
         std_dev=0.0, measures=measures, layers=layer_estimates,
         loss_exceedance=[_point(above(float(x))) for x in losses],
     )
+
+
+def no_loss_probability(portfolio: Portfolio) -> float | None:
+    """P(S = 0) in closed form: the product of the lines' P(no paid claim), for independent
+    lines whose paid claims are positive. None where it is not known so (a copula, claims
+    that can be 0 or negative, an infinite mean, which leaves TVaR undefined)."""
+    if portfolio.dependence is not None or not math.isfinite(portfolio.mean):
+        return None
+    p = 1.0
+    for line in portfolio.lines:
+        if float(line.paid_severity.cdf(0.0)) > 0.0:
+            return None
+        p *= float(line.paid_count.pmf(0))
+    return p
+
+
+def below_the_atom(level: float, mean: float) -> MeasureEstimate:
+    """VaR and TVaR at a level q <= P(S = 0). VaR_q = inf{x : F(x) >= q} = 0, and with
+    TVaR_q = (1/(1 - q)) int_q^1 VaR_u du (Acerbi and Tasche 2002) and VaR_u = 0 for
+    u <= P(S = 0), TVaR_q = E[S] / (1 - q): both closed forms, nothing sampled."""
+    tvar = mean / (1.0 - level)
+    return MeasureEstimate(
+        level=level, var=_point(0.0), tvar=_point(tvar),
+        diagnostics=Diagnostics.deterministic(
+            "exact: the level is at or below P(S = 0), so VaR = 0 and TVaR = E[S] / (1 - q)",
+            exact=True))

@@ -122,14 +122,21 @@ def _label(e: Estimate) -> str:
     return "estimate"
 
 
-def check_tail(measures: Sequence[M], layers: Sequence[L]) -> tuple[list[M], list[L], list[str]]:
+def check_tail(measures: Sequence[M], layers: Sequence[L],
+               var_floor: Sequence[float] | None = None) -> tuple[list[M], list[L], list[str]]:
     """VaR/TVaR and layer figures made safe (see the module docstring): VaR intervals ordered
     and VaR non-decreasing in the level, TVaR >= VaR, a layer loss in [0, limit], attachment
-    and exhaustion probabilities in [0, 1] with P(attach) >= P(exhaust)."""
+    and exhaustion probabilities in [0, 1] with P(attach) >= P(exhaust). var_floor: rigorous
+    lower bounds of each level's VaR (core.levels.largest_claim_var); an interval wholly below
+    its floor has missed the truth."""
     notes: list[str] = []
     out_m: list[M] = []
-    for m in measures:
+    floors = list(var_floor) if var_floor is not None else [0.0] * len(measures)
+    for m, floor in zip(measures, floors, strict=True):
         problems = []
+        if floor > 0.0 and m.var.ci_high < floor * (1 - _ULPS):
+            problems.append(f"the VaR interval lies below {floor:.6g}, which the largest claim "
+                            "alone exceeds with probability above 1 - level")
         for name in ("var", "tvar"):
             iv = getattr(m, name)
             if not _finite(iv.value, iv.ci_low, iv.ci_high):

@@ -11,6 +11,7 @@ derivative of TVaR in VaR vanishes at the true VaR).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 from collections.abc import Sequence
@@ -39,7 +40,7 @@ from core.estimators import registry, select
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.exceedance import check_seed
 from core.invariants import check_tail
-from core.levels import Layer, check_levels, guess_var
+from core.levels import Layer, check_levels, guess_var, largest_claim_var
 from core.portfolio import Portfolio
 from core.precision import GroupRun, Precision, run_group
 from core.results import (
@@ -185,9 +186,13 @@ def tail_estimates(
     q = check_levels(levels) if len(levels) else np.zeros(0)
     if degenerate.surely_zero(portfolio):
         return degenerate.tail(q, layers, losses, seed, start)
+    p0 = degenerate.no_loss_probability(portfolio)
+    if p0 is not None and q.size and np.any(q <= p0):
+        return _with_atom_levels(portfolio, q, q <= p0, layers=layers, losses=losses,
+                                 method=method, precision=precision, seed=seed)
     only_crude = _bounded_figures_of_infinite_mean(portfolio, q, layers, method)
     if only_crude:
-        method = "crude"
+        method = registry.model_itself()
     if (method != registry.AUTO and method in registry.names()
             and registry.get(method).deterministic):
         if portfolio.dependence is not None:
@@ -214,6 +219,19 @@ def tail_estimates(
     return first
 
 
+def _with_atom_levels(portfolio: Portfolio, q: np.ndarray, at_zero: np.ndarray, *,
+                      layers: Sequence[Layer], losses: Sequence[float], method: str,
+                      precision: Precision, seed: int) -> TailResult:
+    """The levels at or below P(S = 0) answered exactly (VaR 0), the others estimated: a
+    grid of positive losses cannot hold a VaR of 0, and its edge is no answer."""
+    rest = tail_estimates(portfolio, levels=q[~at_zero].tolist(), layers=layers,
+                          losses=losses, method=method, precision=precision, seed=seed)
+    sampled = iter(rest.measures)
+    measures = [degenerate.below_the_atom(float(level), portfolio.mean) if zero
+                else next(sampled) for level, zero in zip(q, at_zero, strict=True)]
+    return dataclasses.replace(rest, measures=measures)
+
+
 def _bounded_figures_of_infinite_mean(portfolio: Portfolio, q: np.ndarray,
                                       layers: Sequence[Layer], method: str) -> bool:
     """Whether auto must use crude: limited layers and loss probabilities exist whatever the
@@ -222,13 +240,13 @@ def _bounded_figures_of_infinite_mean(portfolio: Portfolio, q: np.ndarray,
     TVaR and unlimited layers are left to the estimators' own refusal (they do not exist)."""
     if math.isfinite(portfolio.mean) or q.size or any(ly.limit is None for ly in layers):
         return False
-    if method not in ("auto", "crude"):
+    if method not in (registry.AUTO, registry.model_itself()):
         raise MethodError(
             "method",
             f"{method} cannot estimate layers of a portfolio with an infinite mean claim (it "
             "differences two infinite stop-loss transforms); use crude or auto",
         )
-    return method == "auto"
+    return method == registry.AUTO
 
 
 def _extra_points(layers: Sequence[Layer], losses: Sequence[float]) -> list[float]:
@@ -278,7 +296,8 @@ def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[L
         std_dev = portfolio.std_dev
     layer_out = _layers(curves, a, layers)
     loss_out = _losses(curves, len(layers), losses)
-    measures, layer_out, notes = check_tail(measures, layer_out)
+    floors = [largest_claim_var(portfolio, float(level)) for level in q]
+    measures, layer_out, notes = check_tail(measures, layer_out, floors)
     warnings += notes
     if run.stopped_by == "time_limit":
         warnings.append("stopped by the time limit: the figures are not reproducible exactly")
@@ -360,7 +379,9 @@ def _run(name: str, portfolio: Portfolio, a: np.ndarray, q: np.ndarray, layers: 
     if portfolio.dependence is not None:
         values = _dependent_values(name, portfolio, points, anchors, seed,
                                    euler=euler_points(portfolio, g=a.size))
-        stream_name = f"dependent:{name}"
+        from core.dependence.engine import DEPENDENT, estimator
+
+        stream_name = estimator(name).stream_for(DEPENDENT)
     else:
         values = registry.get(name).contributions(portfolio, points, anchors, seed)
         stream_name = registry.get(name).stream

@@ -25,8 +25,10 @@ and 4h and extrapolates to h = 0 (Romberg), then is kept within the bounds.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+import time
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import TypeVar
 
 import numpy as np
 from numpy.typing import NDArray
@@ -57,10 +59,13 @@ __all__ = [
     "compound",
     "convolution_power",
     "exceedance_bounds",
+    "exceedance_points",
     "iid_sum_bounds",
+    "refine_cells",
 ]
 
 _Floats = NDArray[np.float64]
+T = TypeVar("T")
 
 DEFAULT_CELLS = 8192
 # method=recursion starts at RECURSION_CELLS and doubles towards its precision target.
@@ -306,6 +311,7 @@ def exceedance_bounds(
     *,
     cells: int | None = None,
     max_cells: int = 200_000,
+    points: bool = True,
 ) -> list[tuple[float, float, float]]:
     """(lower, upper, point) for P(S > x) at each threshold x.
 
@@ -315,7 +321,8 @@ def exceedance_bounds(
     claims rounded down and up or, when every count is fixed or binomial and it is tighter,
     the within-cell refinement (core.discretise.CellSplit), whose gap is of order h^2. point
     rounds claims to the nearest point at spans h, 2h and 4h, extrapolates to h = 0 and is
-    kept within the bounds.
+    kept within the bounds; with points=False it is left out (NaN), for a refinement that
+    needs only the bounds' width until its last grid (exceedance_points then adds it).
     """
     n_cells = _check_cells(cells, max_cells, multiple=4)  # the estimate also uses 2h and 4h
     _check_portfolio(portfolio)
@@ -338,10 +345,78 @@ def exceedance_bounds(
             upper = aggregate(portfolio, grid, "up").beyond
         else:
             lower, upper = refined
-        estimates = [_nearest_estimate(portfolio, x, n_cells // d) for d in (1, 2, 4)]
-        point = min(max(_romberg(*estimates), lower), upper)
+        point = _point(portfolio, x, n_cells, lower, upper) if points else math.nan
         out.append((float(lower), float(upper), float(point)))
     return out
+
+
+def _point(portfolio: Portfolio, x: float, cells: int, lower: float, upper: float) -> float:
+    estimates = [_nearest_estimate(portfolio, x, cells // d) for d in (1, 2, 4)]
+    return min(max(_romberg(*estimates), lower), upper)
+
+
+def exceedance_points(
+    portfolio: Portfolio, thresholds: Sequence[float], bounds: list[tuple[float, float, float]],
+    cells: int,
+) -> list[tuple[float, float, float]]:
+    """The bounds of exceedance_bounds(..., points=False) on `cells` cells with their point
+    estimates filled in (thresholds <= 0 already carry theirs)."""
+    n_cells = _check_cells(cells, cells, multiple=4)
+    return [(lo, hi, pt if not math.isnan(pt) else
+             float(_point(portfolio, float(x), n_cells, lo, hi)))
+            for x, (lo, hi, pt) in zip(thresholds, bounds, strict=True)]
+
+
+# Direct convolutions cost up to the square of the cell count: a grid r times finer is taken to
+# cost r^2 times the last one until two grids show the actual growth.
+_MAX_JUMP = 8
+
+
+def refine_cells(
+    compute: Callable[[int], T], width_of: Callable[[T], float], target: float | None,
+    deadline: float | None, *, start: int = RECURSION_CELLS, limit: int = RECURSION_MAX_CELLS,
+    finish_cost: float = 0.0,
+) -> tuple[T, int, str, float]:
+    """compute(cells) on ever finer grids until width_of(result) <= target: (result, cells,
+    what stopped it, its width). With a target the first grid is a quarter of `start` (cheap,
+    and it measures the width's and the time's growth). The next grid is the power of two that
+    the widths seen so far predict will meet the target (width ~ cells^-p, p fitted from the last
+    two grids, 1 before that: plain rounding is first order), at most 8 times finer, and it is
+    started only if its predicted time, plus finish_cost times it for work done after the last
+    grid, fits before the deadline."""
+    cells = start if target is None else max(8, start // 4)
+    seen: list[tuple[int, float, float]] = []
+    while True:
+        began = time.monotonic()
+        out = compute(cells)
+        width = width_of(out)
+        took = time.monotonic() - began
+        seen.append((cells, width, took))
+        if target is None:
+            return out, cells, "samples", width
+        if width <= target:
+            return out, cells, "relative_error", width
+        if 2 * cells > limit:
+            return out, cells, "samples", width
+        order, cost_order = 1.0, 2.0
+        if len(seen) >= 2:
+            c0, w0, t0 = seen[-2]
+            step = math.log(cells / c0)
+            if w0 > width > 0:
+                order = min(3.0, max(0.5, math.log(w0 / width) / step))
+            if t0 > 0 and took > 0:
+                cost_order = min(2.0, max(1.0, math.log(took / t0) / step))
+        want = cells * (width / target) ** (1.0 / order) if width > 0 else 2.0 * cells
+        jump = 2 ** max(1, math.ceil(math.log2(max(want / cells, 2.0) * 1.05)))
+        jump = min(jump, _MAX_JUMP, 2 ** math.floor(math.log2(limit / cells)))
+        if deadline is not None:
+            left = deadline - time.monotonic()
+            unit = took * (1.0 + finish_cost)
+            while jump > 2 and jump**cost_order * unit > left:
+                jump //= 2
+            if jump**cost_order * unit > left:
+                return out, cells, "time_limit", width
+        cells *= jump
 
 
 def iid_sum_bounds(

@@ -19,7 +19,7 @@ import numpy as np
 
 from core.discretise import Grid, Lattice
 from core.errors import LimitError, MethodError
-from core.levels import Layer, guess_var
+from core.levels import Layer, guess_var, largest_claim_var
 from core.portfolio import Portfolio
 from core.recursion import aggregate
 from core.results import Diagnostics, Interval, LayerEstimate, MeasureEstimate, TailResult
@@ -107,8 +107,11 @@ def tail_bounds(
     for q in levels:
         q = float(q)
         v_lo, v_up, v_pt = _var(low, h, q), _var(up, h, q), _var(near, h, q)
-        v_pt = min(max(v_pt, v_lo), v_up)
         es_lo = v_lo + _stop_loss(low, h, v_lo, mean_low) / (1.0 - q)
+        # TVaR(S) >= TVaR(S rounded down) above; VaR(S) also >= the largest claim's bound
+        v_lo = min(max(v_lo, largest_claim_var(portfolio, q)), v_up)
+        es_lo = max(es_lo, v_lo)
+        v_pt = min(max(v_pt, v_lo), v_up)
         es_up = v_up + _stop_loss(up, h, v_up, mean_up) / (1.0 - q)
         es_pt = min(max(v_pt + _stop_loss(near, h, v_pt, mean) / (1.0 - q), es_lo), es_up)
         measures.append(MeasureEstimate(

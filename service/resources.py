@@ -183,8 +183,10 @@ RUIN: Resource[RuinRequest, RuinResponse] = Resource(
 # --- fit ------------------------------------------------------------------------------------
 
 
-def _fit_call(body: FitRequest, _: Settings) -> EngineCall:
+def _fit_call(body: FitRequest, settings: Settings) -> EngineCall:
+    # The bootstrap stops at the server's time limit, inside the wall-time backstop.
     return EngineCall(fit_claims, (body.claims,), {
+        "time_limit_s": settings.time_limit_s,
         "reporting_threshold": body.reporting_threshold, "censored_at": body.censored_at,
         "families": body.families, "tail_threshold": body.tail_threshold,
         "counts": body.counts, "exposures": body.exposures,

@@ -13,9 +13,12 @@ import numpy as np
 from core.credit.draws import Component, CreditDraw, Sampler, w_shape_for
 from core.credit.model import CreditModel
 from core.credit.shift import Shift, find_shift
+from core.estimators import registry
 from core.estimators.base import Group
+from core.estimators.estimator import Estimator, ModelKind
 
-CREDIT_METHODS = ("crude", "glasserman_li")
+CREDIT = ModelKind.CREDIT
+CREDIT_METHODS = registry.serving(CREDIT)
 # Share of samples drawn from the model itself: caps the likelihood ratio at 1 / DEFENSIVE,
 # so a region the proposal neglects (another factor direction, W not small) cannot hide.
 DEFENSIVE = 0.1
@@ -83,13 +86,18 @@ def columns(d: CreditDraw, x: np.ndarray, weight: np.ndarray
     return np.asarray(np.hstack(cols), dtype=float)
 
 
+def estimator(name: str) -> Estimator:
+    """The registry's estimator `name`, refused at `method` unless it serves credit books."""
+    return registry.get_for(CREDIT, name, "a portfolio with obligor groups")
+
+
 def work(model: CreditModel, name: str, components: int = 1) -> float:
     """Deterministic cost proxy of one sample: normals and binomials per group and factor,
     times the Newton steps of every component's twist (beta LGDs: one draw per default)."""
     base = float(len(model.groups) + 3 * len(model.lines) + model.factors + 1)
     if not model.fixed_lgd:
         base += float(model.expected_defaults)
-    if name == "crude":
+    if not estimator(name).proposal:
         return base
     return base * (1.0 + _NEWTON_WORK * components)
 
@@ -104,21 +112,21 @@ def block_size(model: CreditModel) -> int:
 
 
 def plan(name: str, model: CreditModel, x: np.ndarray) -> list[Group]:
-    if name == "crude":
+    if not estimator(name).proposal:  # the model itself: one sample set for every threshold
         sampler = Sampler(model, [], 1.0)
 
         def crude_values(m: int, rng: np.random.Generator) -> np.ndarray:
             return columns(sampler.draw(m, rng), x, np.ones(m))
 
-        return [Group(tuple(range(x.size)), crude_values, work(model, "crude"),
+        return [Group(tuple(range(x.size)), crude_values, work(model, name),
                       "indicator of L > x")]
     groups = []
     for i, xi in enumerate(x):
-        groups.append(_twisted_group(model, i, float(xi)))
+        groups.append(_twisted_group(model, i, float(xi), name))
     return groups
 
 
-def _twisted_group(model: CreditModel, i: int, x: float) -> Group:
+def _twisted_group(model: CreditModel, i: int, x: float, name: str) -> Group:
     comp = component(model, x)
     sampler = Sampler(model, [comp, *line_components(model, x)], DEFENSIVE)
     xs = np.array([x])
@@ -131,4 +139,4 @@ def _twisted_group(model: CreditModel, i: int, x: float) -> Group:
     detail = f"Glasserman-Li: factor shift [{mu}], conditional twist to {x:g}"
     if comp.w_shape is not None:
         detail += f", chi-square mixing variable from gamma shape {comp.w_shape:.3g}"
-    return Group((i,), values, work(model, "glasserman_li"), detail)
+    return Group((i,), values, work(model, name), detail)

@@ -9,11 +9,11 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from core.credit.estimators import CREDIT_METHODS, block_size, plan
+from core.credit.estimators import CREDIT, CREDIT_METHODS, block_size, estimator, plan
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
 from core.diagnostics import ContributionStats
-from core.errors import MethodError, ParameterError
+from core.estimators import registry
 from core.estimators.base import Group
 from core.exceedance_records import check_seed, check_thresholds, estimate_record, warnings_for
 from core.intervals import Z95
@@ -23,16 +23,12 @@ from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.streams import Purpose, Stream
 
 PILOT_SAMPLES = 4096
-CRUDE = CREDIT_METHODS[0]  # crude counts hits: its interval is the exact binomial one
 
 
 def check_method(method: str) -> str:
-    if method == "recursion":
-        raise MethodError("method", "recursion has no rigorous bounds for a portfolio with "
-                                    "obligor groups; use auto, crude or glasserman_li")
-    if method != "auto" and method not in CREDIT_METHODS:
-        raise ParameterError("method", "a portfolio with obligor groups takes one of auto, "
-                                       f"{', '.join(CREDIT_METHODS)}; got {method!r}")
+    """auto, or a method of the registry that serves credit books (refused at `method`)."""
+    if method != registry.AUTO:
+        estimator(method)
     return method
 
 
@@ -46,7 +42,7 @@ def choose(model: CreditModel, x: np.ndarray, seed: int) -> tuple[list[str], str
     for name in CREDIT_METHODS:
         cost = 0.0
         for g, group in enumerate(plan(name, model, probe)):
-            rng = Stream(Purpose.PILOT, name, (g,)).rng(seed, 0)
+            rng = Stream(Purpose.PILOT, estimator(name).stream_for(CREDIT), (g,)).rng(seed, 0)
             stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
             mean = np.asarray(stats.mean(), dtype=float)
             se = np.asarray(stats.std_error(), dtype=float)
@@ -74,7 +70,7 @@ def credit_exceedance(
     method = check_method(method)
     precision = precision or Precision()
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    if method == "auto":
+    if method == registry.AUTO:
         names, reason = choose(model, x, seed)
         name = names[0]
     else:
@@ -88,13 +84,14 @@ def credit_exceedance(
     for gid, group in enumerate(groups):
         mapped = Group(tuple(int(possible[i]) for i in group.indices), group.block_values,
                        group.work, group.detail)
-        run = run_group(mapped, block, precision, seed, Stream(Purpose.SAMPLES, name, (gid,)),
+        stream = Stream(Purpose.SAMPLES, estimator(name).stream_for(CREDIT), (gid,))
+        run = run_group(mapped, block, precision, seed, stream,
                         deadline)
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(mapped.indices):
             est = estimate_record(float(x[i]), run.stats, col, run.samples, name, diags[col],
-                                  indicator=name == CRUDE)
+                                  indicator=estimator(name).indicator)
             if model.lines:
                 est = _grid_widened(est, run.stats, col, len(mapped.indices))
             # The invariants every result passes (core.invariants) apply here too.

@@ -24,7 +24,15 @@ import numpy as np
 from scipy import stats
 
 from core.credit.draws import Component, Sampler
-from core.credit.estimators import DEFENSIVE, block_size, component, line_components, work
+from core.credit.estimators import (
+    CREDIT,
+    DEFENSIVE,
+    block_size,
+    component,
+    estimator,
+    line_components,
+    work,
+)
 from core.credit.exceedance import check_method, choose
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
@@ -43,6 +51,7 @@ from core.curves import (
     point_columns,
 )
 from core.diagnostics import ContributionStats
+from core.estimators import registry
 from core.estimators.base import BlockFn, Group
 from core.exceedance import check_seed
 from core.functionals import spread_out
@@ -52,6 +61,11 @@ from core.levels import Layer, check_levels
 from core.precision import GroupRun, Precision, run_group
 from core.results import Contribution, Interval, MeasureEstimate, TailResult
 from core.streams import Purpose, Stream
+
+
+def _stream(purpose: Purpose, name: str) -> Stream:
+    """The method's random stream for this purpose (its registry entry names it)."""
+    return Stream(purpose, estimator(name).stream_for(CREDIT))
 
 
 def guess_var(model: CreditModel, q: float) -> float:
@@ -97,7 +111,7 @@ def _values(sampler: Sampler, points: np.ndarray, grid: int = 0) -> BlockFn:
 
 
 def _sampler(model: CreditModel, name: str, anchors: Sequence[float]) -> Sampler:
-    if name == "crude":
+    if not estimator(name).proposal:
         return Sampler(model, [], 1.0)
     top = model.max_loss
     comps: list[Component] = []
@@ -113,7 +127,7 @@ def _pilot_vars(model: CreditModel, name: str, q: np.ndarray, seed: int) -> list
     a = np.geomspace(max(min(guesses) / 20.0, 1e-9), min(max(guesses) * 20.0, top), 160)
     sampler = _sampler(model, name, [min(g, 0.999 * top) for g in guesses])
     stats_ = ContributionStats.from_samples(
-        _values(sampler, a)(PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, name).rng(seed, 0)))
+        _values(sampler, a)(PILOT_SAMPLES, _stream(Purpose.MEASURE_PILOT, name).rng(seed, 0)))
     curves = _Curves(a, stats_)
     out = []
     for level, guess in zip(q, guesses, strict=True):
@@ -133,7 +147,7 @@ def credit_tail(
     method = check_method(method)
     q = check_levels(levels) if len(levels) else np.zeros(0)
     extra = [x for x in point_columns(layers, losses) if x > 0]
-    if method == "auto":
+    if method == registry.AUTO:
         probe = [guess_var(model, float(v)) for v in q] + extra
         names, reason = choose(model, np.asarray(probe or [model.mean]), seed)
         name = names[0]
@@ -189,7 +203,7 @@ def _run(model: CreditModel, name: str, a: np.ndarray, q: np.ndarray,
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     error_of = _var_error(q, a) if q.size else _layer_error(a.size)
     run = run_group(group, block_size(model), precision, seed,
-                    Stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
+                    _stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
     return _Curves(a, run.stats), run
 
 
@@ -252,7 +266,7 @@ def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEst
     fixed = Precision(samples=precision.samples or precision.minimum,
                       time_limit_s=precision.time_limit_s)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    run = run_group(group, block_size(model), fixed, seed, Stream(Purpose.EULER, name),
+    run = run_group(group, block_size(model), fixed, seed, _stream(Purpose.EULER, name),
                     deadline)
     mean = np.asarray(run.stats.mean(), dtype=float).reshape(nv, 2 * gs + 1)
     var = (np.asarray(run.stats.std_error(), dtype=float) ** 2 * run.stats.n).reshape(

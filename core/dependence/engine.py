@@ -6,11 +6,13 @@ where lower/upper are the exceedance of the lattice's lower and upper loss (equa
 block for lines whose quantiles are exact). Every column is a weighted non-negative
 contribution, so `ContributionStats` and the diagnostics apply unchanged.
 
-Methods: lognormal amounts under a gaussian copula (core.dependence.amounts) have
-`conditional_is` (directional conditional MC with shifted normals), `conditional` (Asmussen,
-Blanchet, Juneja and Rojas-Nandayapa 2011), `radial` (Kortschak and Hashorva 2013; exceedance
-only), `mean_shift` and `crude`; any other dependent portfolio has `mean_shift` (IS on the
-copula's normals) and `crude`.
+Methods are the registry's estimators that serve dependent portfolios (ModelKind.DEPENDENT):
+lognormal amounts under a gaussian copula (core.dependence.amounts) are sampled by each
+method's `amount_sampler` (directional conditional MC with shifted normals, Asmussen,
+Blanchet, Juneja and Rojas-Nandayapa 2011, Kortschak and Hashorva 2013; exceedance only), or
+through the copula's normals by a method without one (the model itself, or the mean-shift
+mixture); any other dependent portfolio goes through the copula's normals. Which methods
+auto pilots, and in which order, is each estimator's `dependent_rank`.
 """
 
 from __future__ import annotations
@@ -25,30 +27,33 @@ from core.dependence import coupled, directional, radial
 from core.dependence.amounts import Amounts, lognormal_amounts
 from core.dependence.marginals import LineQuantile, line_quantiles
 from core.dependence.shift import ShiftMixture
-from core.errors import MethodError
+from core.estimators import registry
+from core.estimators.estimator import AmountSampler, Estimator, ModelKind
 from core.portfolio import Portfolio
 
 FloatArray = npt.NDArray[np.float64]
 IntArray = npt.NDArray[np.int64]
 Values = Callable[[int, np.random.Generator], FloatArray]
 
-DEPENDENT_METHODS = ("crude", "conditional", "conditional_is", "radial", "mean_shift")
+DEPENDENT = ModelKind.DEPENDENT
+DEPENDENT_METHODS = registry.serving(DEPENDENT)
 SHIFT_SCALES = (0.25, 0.5, 0.75, 1.0)
 PILOT_DRAWS = 2048  # per shift scale, shared among the pieces
 
 
+def estimator(name: str) -> Estimator:
+    """The registry's estimator `name`, refused at `method` unless it serves dependent
+    portfolios."""
+    return registry.get_for(DEPENDENT, name, "a dependent portfolio (portfolio.dependence)")
+
+
 def candidates(portfolio: Portfolio, *, measures: bool) -> list[str]:
+    """auto's candidates, best guess first: the estimators' own dependent_rank."""
     amounts = lognormal_amounts(portfolio)
-    if amounts is not None:
-        names = ["conditional_is", "conditional", "radial", "crude"]
-        if amounts.dim <= 2:
-            # One design point per piece of the failure region: with more amounts than two,
-            # a mixture aimed at the single best design point can miss the other amounts'
-            # regions while its pilot looks precise (seen 8% low on a 20-amount one-factor
-            # book), so auto keeps to the estimators that cover every piece.
-            names.insert(3, "mean_shift")
-        return [n for n in names if not (measures and n == "radial")]
-    return ["mean_shift", "crude"]
+    dim = None if amounts is None else amounts.dim
+    ranked = [(rank, name) for name in DEPENDENT_METHODS
+              if (rank := estimator(name).dependent_rank(dim, measures=measures)) is not None]
+    return [name for _, name in sorted(ranked)]
 
 
 def _quantiles(portfolio: Portfolio, smallest: float, top: float | None
@@ -61,18 +66,17 @@ def values(name: str, portfolio: Portfolio, a: FloatArray, anchors: Sequence[flo
            top: float | None = None) -> Values:
     """top: set when only exceedance columns matter (see marginals.line_quantiles)."""
     """The block function of method `name` in the layout above."""
-    if name not in DEPENDENT_METHODS:
-        raise MethodError("method", f"{name} does not apply to a dependent portfolio; use one "
-                                    f"of auto, {', '.join(DEPENDENT_METHODS)}")
+    method = estimator(name)
     amounts = lognormal_amounts(portfolio)
     g = a.size
     anchors = [float(v) for v in anchors if v > 0] or [float(np.max(a))]
-    if amounts is not None and name != "mean_shift" and name != "crude":
-        return _amount_values(name, amounts, a, anchors, euler, seed)
+    if amounts is not None and method.amount_sampler is not None:
+        return _amount_values(method.amount_sampler, amounts, a, anchors, euler, seed)
     cop = portfolio.dependence
     assert cop is not None
     model = coupled.Coupled(cop, _quantiles(portfolio, smallest_tail, top))
-    est = coupled.crude(model) if name == "crude" else coupled.shifted(model, anchors, seed)
+    est = (coupled.shifted(model, anchors, seed) if method.proposal
+           else coupled.crude(model))
     m = cop.dim
     e = euler.size
 
@@ -84,10 +88,10 @@ def values(name: str, portfolio: Portfolio, a: FloatArray, anchors: Sequence[flo
     return block
 
 
-def _amount_values(name: str, amounts: Amounts, a: FloatArray, anchors: list[float],
-                   euler: IntArray, seed: int) -> Values:
+def _amount_values(sampler: AmountSampler, amounts: Amounts, a: FloatArray,
+                   anchors: list[float], euler: IntArray, seed: int) -> Values:
     g = a.size
-    if name == "radial":
+    if sampler is AmountSampler.RADIAL:
         radial.check_thresholds(amounts, a)
 
         def ray(n: int, rng: np.random.Generator) -> FloatArray:
@@ -95,7 +99,7 @@ def _amount_values(name: str, amounts: Amounts, a: FloatArray, anchors: list[flo
             return np.hstack([p, np.zeros((n, g + euler.size * amounts.dim)), p, p])
 
         return ray
-    if name == "conditional":
+    if sampler is AmountSampler.ABJR:
         est = directional.abjr_conditional(amounts, anchors)
     else:
         est = _tuned(directional.directional_is(amounts, anchors), a, anchors, seed)

@@ -21,6 +21,7 @@ from core.dependence.marginals import LineQuantile, line_quantiles
 from core.dependence.moments import dependent_std_dev
 from core.diagnostics import ContributionStats
 from core.errors import LimitError, MethodError, TailgaugeError
+from core.estimators import registry
 from core.estimators.base import Group
 from core.exceedance_records import warnings_for
 from core.intervals import Z95
@@ -35,12 +36,13 @@ FloatArray = npt.NDArray[np.float64]
 PILOT_SAMPLES = 4096
 MEASURE_TAIL = 1e-9  # the smallest tail a risk-measure request's lattices resolve
 EXCEEDANCE_TAIL = 1e-12  # the same for an exceedance request
-SHIFTED = ("conditional_is", "mean_shift")
 
 
 def _groups(name: str, portfolio: Portfolio, x: FloatArray, seed: int, *,
             measures: bool = False) -> list[Group]:
-    parts = [[i] for i in range(x.size)] if name in SHIFTED else [list(range(x.size))]
+    # A method whose proposal aims at a point gets a sample set per threshold.
+    shared = engine.estimator(name).one_sample_set
+    parts = [list(range(x.size))] if shared else [[i] for i in range(x.size)]
     # A risk-measure request's pilot uses the lattices its main run builds (core.measures),
     # so they are built once.
     tail, top = (MEASURE_TAIL, None) if measures else (EXCEEDANCE_TAIL, top_of(x))
@@ -78,7 +80,7 @@ def dependent_moments(portfolio: Portfolio, quantiles: list[LineQuantile]
 
 def _work(name: str, portfolio: Portfolio, points: int) -> float:
     m = len(portfolio.lines)
-    if name in ("crude", "mean_shift"):
+    if engine.estimator(name).amount_sampler is None:  # the copula's normals, then lookups
         return float(m + 4 * points)
     return float(12 * m * points)
 
@@ -127,7 +129,8 @@ def _pilot_cost(name: str, portfolio: Portfolio, x: FloatArray, seed: int, measu
                 ) -> tuple[float, bool]:
     cost, reliable = 0.0, True
     for k, group in enumerate(_groups(name, portfolio, x, seed, measures=measures)):
-        rng = Stream(Purpose.PILOT, f"dependent:{name}", (k,)).rng(seed, 0)
+        rng = Stream(Purpose.PILOT, engine.estimator(name).stream_for(engine.DEPENDENT),
+                     (k,)).rng(seed, 0)
         stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
         g = len(group.indices)
         mean = np.asarray(stats.mean(), dtype=float)[:g]
@@ -166,19 +169,16 @@ def choose(portfolio: Portfolio, x: FloatArray, seed: int, *, measures: bool = F
 
 def dependent_exceedance(portfolio: Portfolio, x: FloatArray, method: str,
                          precision: Precision, seed: int, start: float) -> ExceedanceResult:
-    if method in ("recursion", "tilted"):
-        raise MethodError("method", f"{method} does not apply to a dependent portfolio "
-                                    "(portfolio.dependence): no rigorous bounds or tilt of a "
-                                    "copula-coupled sum are implemented; use auto, "
-                                    + ", ".join(engine.DEPENDENT_METHODS))
+    if method != registry.AUTO:
+        engine.estimator(method)  # refused at `method` unless it serves dependent portfolios
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
-    if method == "auto":
+    if method == registry.AUTO:
         names, reason = choose(portfolio, x, seed)
     else:
         names, reason = [method], f"{method} requested"
     found: dict[int, ExceedanceEstimate] = {}
     stops: list[str] = []
-    for rank, name in enumerate(names[:2] if method == "auto" else names):
+    for rank, name in enumerate(names[:2] if method == registry.AUTO else names):
         todo = [i for i in range(x.size) if i not in found or (
             not found[i].diagnostics.reliable and found[i].hits > 0)]
         if not todo:
@@ -187,7 +187,9 @@ def dependent_exceedance(portfolio: Portfolio, x: FloatArray, method: str,
             if not set(group.indices) & set(todo):
                 continue
             run = run_group(group, block_size(portfolio), precision, seed,
-                            Stream(Purpose.SAMPLES, f"dependent:{name}", (k,)), deadline,
+                            Stream(Purpose.SAMPLES,
+                                   engine.estimator(name).stream_for(engine.DEPENDENT), (k,)),
+                            deadline,
                             error_of=_mid_error(len(group.indices)))  # type: ignore[arg-type]
             stops.append(run.stopped_by)
             for i, est in _estimates(x, group, run.stats, run.samples, name):

@@ -16,10 +16,14 @@ upper bound that reaches it says so by being infinite).
 from __future__ import annotations
 
 import math
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import numpy.typing as npt
+from threadpoolctl import threadpool_limits
 
 from core.counts import Fixed
 from core.portfolio import Line, Portfolio
@@ -54,10 +58,29 @@ class LineQuantile:
 
     def bounds(self, ubar: FloatArray) -> tuple[FloatArray, FloatArray]:
         """(lower, upper) quantiles at upper-tail uniforms ubar = 1 - U."""
-        lat = self.lattices
-        if lat is None:
+        if self.lattices is None:
             q = _amount_quantile(self.line, ubar)
             return q, q
+        edges, lo, hi = self._steps
+        idx = np.searchsorted(edges, ubar, side="right")
+        return lo[idx], hi[idx]
+
+    @cached_property
+    def _steps(self) -> tuple[FloatArray, FloatArray, FloatArray]:
+        """The bounds as one step function of ubar: each lattice's quantile depends on ubar
+        only through #{k: survival_k > ubar}, so the tightest bounds over all lattices are
+        constant between consecutive values of the union of their survivals. Tabulated once
+        (at -inf and at each such value), a lookup is one search instead of two per lattice,
+        with the same values (sampling, the pilots and the moments' quadrature all call it)."""
+        lat = self.lattices
+        assert lat is not None
+        edges = np.unique(np.concatenate(lat.survival_low + lat.survival_up))
+        lo, hi = self._nested(np.concatenate([[-math.inf], edges]))
+        return edges, lo, hi
+
+    def _nested(self, ubar: FloatArray) -> tuple[FloatArray, FloatArray]:
+        lat = self.lattices
+        assert lat is not None
         lo = np.zeros_like(ubar)
         hi = np.full_like(ubar, math.inf)
         for s_lo, s_up, h in zip(lat.survival_low, lat.survival_up, lat.spans, strict=True):
@@ -108,29 +131,61 @@ def line_quantiles(portfolio: Portfolio, smallest_tail: float, top: float | None
     return out
 
 
-def _build(portfolio: Portfolio, smallest_tail: float, top_at: float | None
-           ) -> list[LineQuantile]:
+_PAIRS: OrderedDict[tuple[Line, float, int], tuple[FloatArray, FloatArray, float]] = (
+    OrderedDict())
+_PAIRS_KEPT = 64  # lattice pairs kept (about 64 * 2 * 8k floats = 8 MB at most)
+_PAIRS_LOCK = threading.Lock()
+
+
+def _pair(line: Line, top: float, cells: int) -> tuple[FloatArray, FloatArray, float]:
+    """(survival rounded down, survival rounded up, span) of one line on the grid of `top`
+    and `cells`, by Panjer's recursion (exact_tail=False: the survival is summed from the pmf,
+    whose entries keep their relative accuracy far below 1e-6). Kept by value of the line, so
+    that requests on the same lines (other thresholds, another copula, a pilot and its main
+    run) build each lattice once; the arrays are read-only."""
     from core.discretise import Grid
     from core.recursion import aggregate
 
+    key = (line, float(top), int(cells))
+    # One builder at a time: the BLAS thread limit below is process-wide.
+    with _PAIRS_LOCK:
+        hit = _PAIRS.get(key)
+        if hit is not None:
+            _PAIRS.move_to_end(key)
+            return hit
+        single = Portfolio(lines=[line])
+        grid = Grid.with_top(top=top, cells=cells)
+        # One BLAS thread: the recursion's blocked products are too small to share among
+        # threads, and on a busy machine the extra threads spin (measured: 2.2 s of CPU for
+        # one request's lattices with two threads, 0.5 s with one; same values).
+        with threadpool_limits(limits=1, user_api="blas"):
+            low = aggregate(single, grid, "down", exact_tail=False).survival()
+            up = aggregate(single, grid, "up", exact_tail=False).survival()
+        low.flags.writeable = False
+        up.flags.writeable = False
+        _PAIRS[key] = (low, up, grid.span)
+        while len(_PAIRS) > _PAIRS_KEPT:
+            _PAIRS.popitem(last=False)
+        return low, up, grid.span
+
+
+def _build(portfolio: Portfolio, smallest_tail: float, top_at: float | None
+           ) -> list[LineQuantile]:
     out = []
     for line in portfolio.lines:
         if isinstance(line.count, Fixed) and line.count.n == 1:
             out.append(LineQuantile(line))
             continue
-        single = Portfolio(lines=[line])
         top = _lattice_top(line, 1e-3 * smallest_tail)
         if top_at is not None:
             top = min(top, top_at)
         lows, ups, spans = [], [], []
         tops, main = _tops(top, line.mean)
         for k, level_top in enumerate(tops):
-            grid = Grid.with_top(top=level_top, cells=CELLS if k < main else FILL_CELLS)
-            # Panjer's recursion (exact_tail=False): the survival is summed from the pmf,
-            # whose entries keep their relative accuracy far below 1e-6.
-            lows.append(aggregate(single, grid, "down", exact_tail=False).survival())
-            ups.append(aggregate(single, grid, "up", exact_tail=False).survival())
-            spans.append(grid.span)
+            low, up, span = _pair(line, level_top, CELLS if k < main else FILL_CELLS)
+            lows.append(low)
+            ups.append(up)
+            spans.append(span)
         out.append(LineQuantile(line, Lattices(tuple(lows), tuple(ups), tuple(spans))))
     return out
 
@@ -141,9 +196,6 @@ def with_reach(quantiles: tuple[LineQuantile, ...], tail: float
     the point where the line's tail is below `tail` (moments need the whole range; a request
     of exceedance builds lattices only up to its thresholds). Adding a lattice keeps every
     bound valid: the bounds are the tightest over the lattices."""
-    from core.discretise import Grid
-    from core.recursion import aggregate
-
     out = []
     for q in quantiles:
         lat = q.lattices
@@ -152,13 +204,12 @@ def with_reach(quantiles: tuple[LineQuantile, ...], tail: float
             continue
         top = _lattice_top(q.line, tail)
         reach = max(s.size * h for s, h in zip(lat.survival_low, lat.spans, strict=True))
-        single = Portfolio(lines=[q.line])
         lows, ups, spans = list(lat.survival_low), list(lat.survival_up), list(lat.spans)
         while top > reach:  # T, T/8, ... down to the lattices there are
-            grid = Grid.with_top(top=top, cells=CELLS)
-            lows.append(aggregate(single, grid, "down", exact_tail=False).survival())
-            ups.append(aggregate(single, grid, "up", exact_tail=False).survival())
-            spans.append(grid.span)
+            low, up, span = _pair(q.line, top, CELLS)
+            lows.append(low)
+            ups.append(up)
+            spans.append(span)
             top /= NESTING_RATIO
         out.append(LineQuantile(q.line, Lattices(tuple(lows), tuple(ups), tuple(spans))))
     return tuple(out)

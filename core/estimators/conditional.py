@@ -23,7 +23,7 @@ import numpy as np
 
 from core.errors import MethodError
 from core.estimators.base import BlockFn, Group, work_per_sample
-from core.estimators.estimator import Estimator, RuinRegime
+from core.estimators.estimator import AmountSampler, Estimator, ModelKind, RuinRegime
 from core.functionals import excess_mean
 from core.portfolio import Portfolio
 from core.sampling import Draw, draw_block
@@ -148,6 +148,12 @@ class Conditional(Estimator):
     one_sample_set = True
     ruin_infinite = RuinRegime.GEOMETRIC_SUM
     ruin_finite = RuinRegime.BIG_JUMP
+    serves = frozenset({ModelKind.CLAIMS, ModelKind.DEPENDENT})
+    # Lognormal amounts: Asmussen, Blanchet, Juneja and Rojas-Nandayapa (2011).
+    amount_sampler = AmountSampler.ABJR
+
+    def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:
+        return 1 if amounts is not None else None
 
     def check(self, portfolio: Portfolio) -> None:
         Conditioning(portfolio)

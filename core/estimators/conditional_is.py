@@ -19,7 +19,7 @@ import numpy as np
 from core.big_claim import BigClaim
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.estimators.conditional import Conditioning
-from core.estimators.estimator import Estimator, RuinRegime
+from core.estimators.estimator import AmountSampler, Estimator, ModelKind, RuinRegime
 from core.estimators.mixture import TiltFamily
 from core.functionals import spread_out
 from core.portfolio import Portfolio
@@ -177,6 +177,12 @@ class ConditionalIS(Estimator):
     listing = 40
     # The pilot that places the risk-measure grid uses plain conditioning: no adaptation yet.
     grid_pilot = "conditional"
+    serves = frozenset({ModelKind.CLAIMS, ModelKind.DEPENDENT})
+    # Lognormal amounts: directional conditional MC with shifted normals.
+    amount_sampler = AmountSampler.DIRECTIONAL
+
+    def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:
+        return 0 if amounts is not None else None
     ruin_infinite = RuinRegime.GEOMETRIC_SUM
     ruin_refusal = ("conditional_is estimates the infinite-horizon Pollaczek-Khinchine sum; with "
                     "a horizon use auto, conditional, tilted or crude")

@@ -7,7 +7,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from core.estimators.base import BlockFn, Group, work_per_sample
-from core.estimators.estimator import Estimator, RuinRegime
+from core.estimators.estimator import Estimator, ModelKind, RuinRegime
 from core.functionals import plain_values
 from core.portfolio import Portfolio
 from core.sampling import draw_block
@@ -31,6 +31,11 @@ class Crude(Estimator):
     one_sample_set = True
     ruin_infinite = RuinRegime.GEOMETRIC_SUM
     ruin_finite = RuinRegime.CRUDE_PATHS
+    serves = frozenset(ModelKind)  # every model can be simulated as it is
+    proposal = False
+
+    def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:
+        return 4 if amounts is not None else 1  # the last resort there too
 
     def candidate_rank(self, portfolio: Portfolio) -> int | None:
         return 9  # always a candidate, and the last resort

@@ -36,6 +36,25 @@ class RuinRegime(StrEnum):
     BOUNDS = "bounds"  # deterministic bounds of the Pollaczek-Khinchine sum
 
 
+class ModelKind(StrEnum):
+    """The kinds of model a method may serve (each has its own dispatcher: core.exceedance and
+    core.measures for claims, core.dependence for copula-coupled lines, core.credit for
+    obligor groups); the dispatchers read `serves` and the hooks below, never method names."""
+
+    CLAIMS = "claims"  # independent claim lines (core.portfolio.Portfolio)
+    DEPENDENT = "dependent"  # claim lines coupled by a copula (Portfolio.dependence)
+    CREDIT = "credit"  # obligor groups on factors, claim lines beside them (core.credit)
+
+
+class AmountSampler(StrEnum):
+    """How a method samples correlated lognormal amounts (core.dependence.engine); a method
+    without one uses the copula's own normals (shifted unless it draws from the model)."""
+
+    RADIAL = "radial"  # Kortschak and Hashorva (2013), exceedance only
+    ABJR = "abjr"  # Asmussen, Blanchet, Juneja and Rojas-Nandayapa (2011)
+    DIRECTIONAL = "directional"  # directional conditional MC with tuned shifted normals
+
+
 class Estimator:
     """One method. Subclasses set `name` and override the hooks that apply to them."""
 
@@ -51,11 +70,28 @@ class Estimator:
     ruin_infinite: ClassVar[RuinRegime | None] = None
     ruin_finite: ClassVar[RuinRegime | None] = None
     ruin_refusal: ClassVar[str] = ""  # why a ruin horizon (or its absence) is refused
+    # The kinds of model it serves, and what it is for when it does not serve one.
+    serves: ClassVar[frozenset[ModelKind]] = frozenset({ModelKind.CLAIMS})
+    # Draws from a proposal (likelihood ratios), not from the model itself (crude).
+    proposal: ClassVar[bool] = True
+    # Dependent portfolios: the sampler of correlated lognormal amounts (None: the copula's).
+    amount_sampler: ClassVar[AmountSampler | None] = None
 
     @property
     def stream(self) -> str:
         """The method component of this estimator's random streams (core.streams)."""
         return self.name
+
+    def stream_for(self, kind: ModelKind) -> str:
+        """The method component of its streams on a model of this kind: a dependent
+        portfolio's draws are apart from the same method's on independent lines."""
+        return f"dependent:{self.name}" if kind is ModelKind.DEPENDENT else self.name
+
+    def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:
+        """Order among auto's candidates for a dependent portfolio (lower first), given the
+        number of correlated lognormal amounts (None: copula-coupled compound lines) and
+        whether the request is for risk measures; None: not a candidate."""
+        return None
 
     def check(self, portfolio: Portfolio) -> None:
         """Raise MethodError, saying why and what to use instead, when it does not apply."""
@@ -75,7 +111,9 @@ class Estimator:
     def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
              deadline: float | None = None) -> list[Group]:
         """Groups of thresholds sharing one sample set, for P(S > x); `deadline` (a
-        time.monotonic() value) bounds any adaptation done while planning."""
+        time.monotonic() value) bounds any adaptation done while planning. Here (a method
+        whose sampler lives in its own dispatcher): its own refusal first, as it says why."""
+        self.check(portfolio)
         raise MethodError("method", f"{self.name} cannot estimate exceedance probabilities")
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
@@ -83,6 +121,7 @@ class Estimator:
         """Per-sample contributions at `points` for a block: an (m, 2 G) array, the first G
         columns unbiased for P(S > a_g), the last G for E[(S - a_g)+]. `anchors` are where the
         interest lies (VaR guesses, layer points), for proposals that adapt to them."""
+        self.check(portfolio)
         raise MethodError("method", f"{self.name} cannot estimate risk measures")
 
     def exceedance_bounds(self, portfolio: Portfolio, thresholds: np.ndarray,

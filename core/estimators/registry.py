@@ -10,8 +10,8 @@ import importlib
 import pkgutil
 from pathlib import Path
 
-from core.errors import ParameterError
-from core.estimators.estimator import Estimator
+from core.errors import MethodError, ParameterError
+from core.estimators.estimator import Estimator, ModelKind
 from core.portfolio import Portfolio
 
 AUTO = "auto"  # the automatic choice: not an estimator, it pilots the candidates
@@ -40,6 +40,26 @@ def names() -> tuple[str, ...]:
 def methods() -> tuple[str, ...]:
     """What a request may ask for: auto, then every estimator."""
     return (AUTO, *names())
+
+
+def serving(kind: ModelKind) -> tuple[str, ...]:
+    """The methods that serve a kind of model, in listing order."""
+    return tuple(e.name for e in estimators() if kind in e.serves)
+
+
+def get_for(kind: ModelKind, name: str, what: str) -> Estimator:
+    """The estimator `name`, refused at `method` unless it serves this kind of model (`what`
+    names the model in the message)."""
+    est = get(name)
+    if kind not in est.serves:
+        raise MethodError("method", f"{name} does not apply to {what}; use one of "
+                                    f"{', '.join((AUTO, *serving(kind)))}")
+    return est
+
+
+def model_itself() -> str:
+    """The method that draws from the model itself (no proposal, crude Monte Carlo)."""
+    return next(e.name for e in estimators() if not e.proposal)
 
 
 def ruin_methods() -> tuple[str, ...]:

@@ -108,11 +108,19 @@ def fit_claims(
     tail_threshold: float | None = None, counts: Sequence[int] | None = None,
     exposures: Sequence[float] | None = None, replicates: int = DEFAULT_REPLICATES,
     max_claims: int = DEFAULT_MAX_CLAIMS, seed: int | None = None,
+    time_limit_s: float | None = None,
 ) -> FitReport:
     """Fit ``families`` (absent: every one that applies) to the claims; see the package
-    modules for the methods."""
+    modules for the methods. ``time_limit_s`` bounds the bootstrap: replicates stop there
+    (each family's p-values rest on the replicates done, and a warning says so); the fits
+    themselves always run."""
     start = time.monotonic()
     seed = check_seed(seed)
+    if time_limit_s is not None and not (
+            isinstance(time_limit_s, int | float) and time_limit_s > 0
+            and math.isfinite(time_limit_s)):
+        raise ParameterError("time_limit_s", f"must be a finite number > 0, got {time_limit_s!r}")
+    deadline = None if time_limit_s is None else start + float(time_limit_s)
     if not (isinstance(replicates, int) and replicates >= 1):
         raise ParameterError("replicates", f"must be an integer >= 1, got {replicates!r}")
     if not (isinstance(max_claims, int) and max_claims >= 20):
@@ -122,19 +130,28 @@ def fit_claims(
         raise ParameterError("exposures", "need counts: one exposure per period of counts")
     count_report = fit_counts(counts, exposures) if counts is not None else None
     models, warnings = _models(data, families, tail_threshold)
-    fits = [_fit_one(model, where, data, replicates, max_claims, seed)
-            for model, where in models]
+    fitted = [(model, where, model.fit(data)) for model, where in models]
+    fits = []
+    for j, (model, where, fit) in enumerate(fitted):
+        # The families share the time left equally, so a slow first one does not leave the
+        # others without replicates.
+        share = None if deadline is None else (
+            time.monotonic() + (deadline - time.monotonic()) / (len(fitted) - j))
+        fits.append(_tested(model, where, fit, data, replicates, max_claims, seed, share))
+    if any(n.startswith("bootstrap stopped at the time limit") for f in fits for n in f.notes):
+        warnings.append(f"the goodness-of-fit bootstrap stopped at the time limit of "
+                        f"{time_limit_s:g} s: the p-values rest on fewer replicates than "
+                        "asked (each fit's tests.replicates says how many)")
     return FitReport(seed=seed, elapsed_s=time.monotonic() - start, n=data.n,
                      censored=int(data.censored.sum()), fits=fits,
                      tail=tail_diagnostics(data), counts=count_report, warnings=warnings)
 
 
-def _fit_one(model: Model, where: float | None, data: ClaimData, replicates: int,
-             max_claims: int, seed: int) -> FamilyFit:
-    fit = model.fit(data)
+def _tested(model: Model, where: float | None, fit: Fit, data: ClaimData, replicates: int,
+            max_claims: int, seed: int, deadline: float | None) -> FamilyFit:
     tests, notes = bootstrap_tests(fit.severity, data, model.refitter(fit),
                                    replicates=replicates, max_claims=max_claims, seed=seed,
-                                   key=FAMILY_KEY[model.name])
+                                   key=FAMILY_KEY[model.name], deadline=deadline)
     if data.n > max_claims:
         notes.append(f"bootstrap replicates have {max_claims} claims (of {data.n}); the "
                      "p-values compare n-scaled statistics")

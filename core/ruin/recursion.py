@@ -13,10 +13,10 @@ lower bound) and up (an upper bound), so:
   below it whose lower bound is still > target (surely too small), so the true capital lies in
   (ci_low, ci_high]; the point is where the point estimates cross the target.
 
-The grids start at core.recursion.RECURSION_CELLS cells and double while the bounds are wider
-than precision.relative_error (relative half-width), up to RECURSION_MAX_CELLS, and while the
-next grid is expected to finish within the time limit. There is no sampling: samples = 0,
-std_error None, and the same request gives the same figures.
+The grids start at core.recursion.RECURSION_CELLS cells and are refined while the bounds are
+wider than precision.relative_error (relative half-width), up to RECURSION_MAX_CELLS, and while
+the next grid is expected to finish within the time limit (core.recursion.refine_cells). There
+is no sampling: samples = 0, std_error None, and the same request gives the same figures.
 """
 
 from __future__ import annotations
@@ -32,7 +32,13 @@ from core.discretise import Grid, Lattice
 from core.errors import LimitError, MethodError
 from core.portfolio import Portfolio
 from core.precision import Precision
-from core.recursion import RECURSION_CELLS, RECURSION_MAX_CELLS, aggregate, exceedance_bounds
+from core.recursion import (
+    RECURSION_CELLS,
+    RECURSION_MAX_CELLS,
+    aggregate,
+    exceedance_bounds,
+    refine_cells,
+)
 from core.results import CapitalForTarget, Diagnostics, RuinEstimate, RuinResult
 from core.ruin.approximations import approximation
 from core.ruin.capital import Bracket, crossing
@@ -43,9 +49,6 @@ from core.ruin.runner import Context
 
 __all__ = ["check_horizon", "ruin_bounds"]
 
-# Direct convolutions cost the square of the cell count: a doubled grid takes about 4 times as
-# long as the last one. The next grid is started only if that much time is left.
-_GROWTH = 4.0
 _WIDENINGS = 4  # times the search lattice's top may be widened before giving up
 
 T = TypeVar("T")
@@ -65,23 +68,9 @@ def _refine(
     compute: Callable[[int], T], width_of: Callable[[T], float], target: float | None,
     deadline: float | None,
 ) -> tuple[T, int, str, float]:
-    """compute(cells) on grids doubling from RECURSION_CELLS until width_of(result) <= target:
-    (result, cells, what stopped it, its width)."""
-    cells = RECURSION_CELLS
-    while True:
-        began = time.monotonic()
-        out = _on_grid(compute, cells)
-        width = width_of(out)
-        if target is None:
-            return out, cells, "samples", width
-        if width <= target:
-            return out, cells, "relative_error", width
-        if 2 * cells > RECURSION_MAX_CELLS:
-            return out, cells, "samples", width
-        now = time.monotonic()
-        if deadline is not None and now + _GROWTH * (now - began) > deadline:
-            return out, cells, "time_limit", width
-        cells *= 2
+    """compute(cells) on finer grids (core.recursion.refine_cells) until width_of(result) <=
+    target: (result, cells, what stopped it, its width)."""
+    return refine_cells(lambda cells: _on_grid(compute, cells), width_of, target, deadline)
 
 
 def _on_grid(compute: Callable[[int], T], cells: int) -> T:

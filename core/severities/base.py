@@ -351,6 +351,9 @@ class Severity(abc.ABC):
         return [start, *inner, upper]
 
     def _numeric_limited(self, t: float, k: int) -> float:
+        return _cached_limited(self, t, k)
+
+    def _compute_limited(self, t: float, k: int) -> float:
         """E[min(X, t)^k] = int x^k f(x) dx over (lo, t) + t^k sf(t), by quad on quantile edges."""
         edges = self._edges(t)
         total = 0.0
@@ -367,6 +370,9 @@ class Severity(abc.ABC):
         return sign * math.exp(log_value) if log_value < 709.0 else sign * math.inf
 
     def _numeric_moment(self, k: int) -> float:
+        return _cached_moment(self, k)
+
+    def _compute_moment(self, k: int) -> float:
         edges = self._edges(self.support_max)
         total = 0.0
         for a, b in itertools.pairwise(edges):
@@ -438,6 +444,18 @@ def _cached_grid(law: Severity) -> _Floats:
     grid = law._build_grid()
     grid.setflags(write=False)
     return grid
+
+
+# The moments of a layered law (a capped excess, say) are quadratures too, and the samplers,
+# the VaR guess and the pilots ask for the portfolio's mean and variance many times over.
+@functools.lru_cache(maxsize=1024)
+def _cached_moment(law: Severity, k: int) -> float:
+    return law._compute_moment(k)
+
+
+@functools.lru_cache(maxsize=4096)
+def _cached_limited(law: Severity, t: float, k: int) -> float:
+    return law._compute_limited(t, k)
 
 
 @functools.lru_cache(maxsize=4096)

@@ -6,7 +6,7 @@ import asyncio
 from typing import Annotated
 
 from fastapi import APIRouter, Depends, Request
-from fastapi.responses import HTMLResponse
+from fastapi.responses import HTMLResponse, Response
 
 from service.auth import CallerDep
 from service.report import build_report
@@ -28,7 +28,9 @@ def build_router() -> APIRouter:
     router = APIRouter(prefix="/v1", tags=["runs"])
 
     @router.get(
-        "/runs/{run_id}/report", response_class=HTMLResponse, summary="Run report (HTML)",
+        # response_class Response, not HTMLResponse: FastAPI gives every documented response
+        # the route class's media type, and the errors (401, 404, 422, 500) are JSON.
+        "/runs/{run_id}/report", response_class=Response, summary="Run report (HTML)",
         responses={
             200: {"description": "One self-contained HTML page (no external assets): the "
                   "run, each item's model in words, tables, charts, method, warnings and "

@@ -288,14 +288,17 @@ class PortfolioSpec(RequestModel):
 # --- method and precision -------------------------------------------------------------------
 
 # The methods are the core's estimator registry (core.estimators.registry): a new estimator
-# appears in the schema without an edit here. Portfolio requests also take the credit
-# estimator (ruin keeps Method). Type checkers see a plain str.
+# appears in the schema without an edit here. Portfolio requests take every method (each
+# refuses, at `method`, the models it does not serve); ruin takes those with a ruin regime.
+# Type checkers see a plain str.
 if TYPE_CHECKING:
     Method = str
     PortfolioMethod = str
+    RuinMethod = str
 else:
     Method = Literal[core.METHODS]
-    PortfolioMethod = Literal[(*core.METHODS, "mean_shift", "radial", "glasserman_li")]
+    PortfolioMethod = Method
+    RuinMethod = Literal[core.RUIN_METHODS]
 
 METHOD_DESCRIPTION = (
     "Estimator: auto (chosen from the model's tails and a short pilot), crude (plain Monte "

@@ -13,11 +13,11 @@ from service.schemas.common import (
     MAX_JSON_SAFE_INT,
     ClaimMean,
     DiagnosticsOut,
-    Method,
     NonNegativeMoney,
     PositiveMoney,
     PrecisionSpec,
     RequestModel,
+    RuinMethod,
     Severity,
 )
 
@@ -112,7 +112,7 @@ class RuinRequest(RequestModel):
         "gives the smallest capital whose ruin probability is at most the target "
         "(capital_for_target).",
     )
-    method: Method = Field(default="auto", description=RUIN_METHOD_DESCRIPTION)
+    method: RuinMethod = Field(default="auto", description=RUIN_METHOD_DESCRIPTION)
     precision: PrecisionSpec = Field(
         default_factory=PrecisionSpec,
         description="Precision target and budgets (samples are simulated paths); server limits "

@@ -111,7 +111,7 @@ def split_section(samples: int) -> dict[str, Any]:
             pool.shutdown()
     from distributed import LocalCluster  # the bench needs the dask extra for this row
 
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True,  # type: ignore[no-untyped-call]
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True,  # type: ignore[no-untyped-call, unused-ignore]
                       dashboard_address=None) as cluster:
         pool = ComputePool(kind="dask", workers=1, metrics=Metrics(),
                            dask_scheduler=cluster.scheduler_address)

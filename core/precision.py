@@ -76,11 +76,9 @@ def draw_blocks(group: Group, stream: Stream, seed: int, total: int, block: int,
     """`total` samples of a group in the blocks of the plan from block `start` on, as
     run_group draws them; a run continued from it gives what one longer run would (a pilot
     that counts towards the estimate)."""
-    parts = [ContributionStats.from_samples(group.block_values(m, stream.rng(seed, b)),
-                                            top_k=TOP_K, chunk=b)
-             for b, m in blocks(total, block, start=start)]
-    return GroupRun(ContributionStats.combine(parts), total, "samples",
-                    start + math.ceil(total / block))
+    stats = spans.draw(group, stream, seed, list(blocks(total, block, start=start)),
+                       top_k=TOP_K)
+    return GroupRun(stats, total, "samples", start + math.ceil(total / block))
 
 
 def _worst_relative_error(stats: ContributionStats) -> float:

@@ -152,6 +152,19 @@ def cut(
     return spans
 
 
+def draw(
+    group: Group, stream: Stream, seed: int, plan: Sequence[tuple[int, int]], *,
+    top_k: int = 1024,
+) -> ContributionStats:
+    """The merged statistics of the blocks `(index, samples)` of `plan`, drawn by the current
+    runner: a pilot or any fixed draw outside the run-until loop, so that it runs where the
+    estimate's spans run (never in the thread driving the request) and uses every slot."""
+    runner = current()
+    results = runner(cut(group, stream, seed, plan, top_k=top_k, width=runner.width,
+                         deadline=None))
+    return ContributionStats.combine([result.stats for result in results])
+
+
 def wall_deadline(monotonic_deadline: float | None) -> float | None:
     """A time.monotonic() deadline as wall-clock time, for spans run in other processes."""
     if monotonic_deadline is None:

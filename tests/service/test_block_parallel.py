@@ -28,6 +28,8 @@ def _portfolio() -> core.Portfolio:
 CALLS: dict[str, tuple[Any, tuple[Any, ...], dict[str, Any]]] = {
     "exceedance, conditional": (core.estimate_exceedance, (_portfolio(), [40.0, 80.0]),
                                 {"method": "conditional"}),
+    # auto's pilots go out as spans too, and the chosen method continues its own pilot.
+    "exceedance, auto": (core.estimate_exceedance, (_portfolio(), [40.0, 80.0]), {}),
     "exceedance, run until a relative error": (
         core.estimate_exceedance, (_portfolio(), [30.0]),
         {"method": "crude", "precision": core.Precision(relative_error=0.05,

@@ -10,7 +10,7 @@ import numpy as np
 
 from core import degenerate
 from core.estimators import registry, select
-from core.invariants import check_monotone, check_probability
+from core.invariants import check_probability
 from core.portfolio import Portfolio
 
 if TYPE_CHECKING:
@@ -20,7 +20,7 @@ from core.exceedance_records import (
     check_thresholds,
     draw_seed,
     estimate_record,
-    warnings_for,
+    exceedance_result,
 )
 from core.precision import GroupRun, Precision, run_group
 from core.results import ExceedanceEstimate, ExceedanceResult
@@ -131,15 +131,6 @@ def exceedance(
             if not found[i].diagnostics.reliable:
                 reason += (f"; threshold {x[i]:g}: still flagged after trying "
                            f"{', '.join(names)}")
-    estimates, notes = check_monotone([found[i] for i in range(x.size)], x.tolist())
-    order = ("time_limit", "max_samples", "samples", "relative_error")
-    stopped = next(s for s in order if s in stops)
-    warnings = warnings_for(estimates) + notes
-    if stopped == "time_limit":
-        warnings.append("stopped by the time limit: the figures are not reproducible exactly")
-    used = sorted({e.method for e in estimates})
-    return ExceedanceResult(
-        method=used[0] if len(used) == 1 else "+".join(used), method_reason=reason, seed=seed,
-        elapsed_s=time.monotonic() - start, stopped_by=stopped, mean=portfolio.mean,
-        std_dev=portfolio.std_dev, estimates=estimates, warnings=warnings,
-    )
+    return exceedance_result([found[i] for i in range(x.size)], x.tolist(), stops,
+                             method_reason=reason, seed=seed, start=start,
+                             mean=portfolio.mean, std_dev=portfolio.std_dev)

@@ -4,6 +4,7 @@ and core.credit.exceedance."""
 
 from __future__ import annotations
 
+import time
 from collections.abc import Sequence
 
 import numpy as np
@@ -11,7 +12,8 @@ import numpy as np
 from core import intervals
 from core.diagnostics import MAX_SHARE, ContributionStats
 from core.errors import ParameterError
-from core.results import Diagnostics, ExceedanceEstimate
+from core.invariants import check_monotone
+from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
 from core.validate import finite_numbers
 
 
@@ -75,3 +77,22 @@ def warnings_for(estimates: list[ExceedanceEstimate]) -> list[str]:
             notes.append(f"threshold {e.threshold:g}: one sample carries "
                          f"{100 * d.largest_share:.0f}% of the estimate")
     return notes
+
+
+def exceedance_result(
+    found: Sequence[ExceedanceEstimate], x: Sequence[float], stops: Sequence[str], *,
+    method_reason: str, seed: int, start: float, mean: float, std_dev: float,
+) -> ExceedanceResult:
+    """The one way every exceedance entry point closes: the monotonicity check over the
+    thresholds, the strongest stop reason, the warnings, and the method label."""
+    estimates, notes = check_monotone(list(found), list(x))
+    order = ("time_limit", "max_samples", "samples", "relative_error")
+    stopped = next(s for s in order if s in stops)
+    warnings = warnings_for(estimates) + notes
+    if stopped == "time_limit":
+        warnings.append("stopped by the time limit: the figures are not reproducible exactly")
+    used = sorted({e.method for e in estimates})
+    return ExceedanceResult(
+        method=used[0] if len(used) == 1 else "+".join(used), method_reason=method_reason,
+        seed=seed, elapsed_s=time.monotonic() - start, stopped_by=stopped, mean=mean,
+        std_dev=std_dev, estimates=estimates, warnings=warnings)

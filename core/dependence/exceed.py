@@ -10,7 +10,6 @@ variance, then the reliability checks) as the independent engine does.
 from __future__ import annotations
 
 import math
-import time
 
 import numpy as np
 import numpy.typing as npt
@@ -24,9 +23,9 @@ from core.diagnostics import ContributionStats
 from core.errors import LimitError, MethodError, TailgaugeError
 from core.estimators import registry
 from core.estimators.base import Group
-from core.exceedance_records import warnings_for
+from core.exceedance_records import exceedance_result
 from core.intervals import Z95
-from core.invariants import check_monotone, check_probability
+from core.invariants import check_probability
 from core.portfolio import Portfolio
 from core.precision import Precision, run_group
 from core.results import Diagnostics, ExceedanceEstimate, ExceedanceResult
@@ -201,16 +200,8 @@ def dependent_exceedance(portfolio: Portfolio, x: FloatArray, method: str,
                     if rank > 0:
                         reason += f"; threshold {x[i]:g} re-estimated by {name} after a flag"
                     found[i] = est
-    estimates, notes = check_monotone([found[i] for i in range(x.size)], x.tolist())
-    order = ("time_limit", "max_samples", "samples", "relative_error")
-    stopped = next(s for s in order if s in stops)
-    warnings = warnings_for(estimates) + notes
-    if stopped == "time_limit":
-        warnings.append("stopped by the time limit: the figures are not reproducible exactly")
     mean, sd = dependent_moments(portfolio, line_quantiles(portfolio, EXCEEDANCE_TAIL,
                                                                top_of(x)))
-    used = sorted({e.method for e in estimates})
-    return ExceedanceResult(
-        method=used[0] if len(used) == 1 else "+".join(used), method_reason=reason,
-        seed=seed, elapsed_s=time.monotonic() - start, stopped_by=stopped, mean=mean,
-        std_dev=sd, estimates=estimates, warnings=warnings)
+    return exceedance_result([found[i] for i in range(x.size)], x.tolist(), stops,
+                             method_reason=reason, seed=seed, start=start, mean=mean,
+                             std_dev=sd)

@@ -131,16 +131,21 @@ def split_section(samples: int) -> dict[str, Any]:
             "identical": bits["process1"] == bits["process2"] == bits["dask"]}
 
 
-def mixed_section(duration_s: float, connections: int, recheck: int) -> dict[str, Any]:
+def mixed_section(duration_s: float, connections: int, recheck: int, quick: bool = False
+                  ) -> dict[str, Any]:
     budget = load.Budget(duration_s=duration_s, max_requests=100_000, concurrency=connections,
                          workers=2)
+    if quick:  # heavy requests a tenth of the size, still split across the workers
+        budget.heavy_samples, budget.split_samples = 20_000, 10_000
     with tempfile.TemporaryDirectory(prefix="tailgauge-scale-") as tmp:
-        process, base = load._start_server(Path(tmp) / "data", budget.workers)
+        process, base = load._start_server(Path(tmp) / "data", budget.workers,
+                                           budget.split_samples)
         try:
             before = _loadavg()
             record, elapsed = asyncio.run(load._load(base, process.pid, budget))
             after = _loadavg()
-            rechecked = asyncio.run(load._recheck(base, record, recheck))
+            rechecked = asyncio.run(load._recheck(base, record, recheck,
+                                                  budget.heavy_samples))
         finally:
             _stop(process)
     rows = load._latency_rows(record)
@@ -260,8 +265,8 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     samples = 100_000 if args.quick else min(args.samples, 10_000_000)
     split = split_section(samples)
-    mixed = mixed_section(3.0 if args.quick else min(args.duration, 300.0),
-                          4 if args.quick else 24, 4 if args.quick else 20)
+    mixed = mixed_section(2.0 if args.quick else min(args.duration, 300.0),
+                          4 if args.quick else 24, 2 if args.quick else 20, args.quick)
     over = overload_section(4 if args.quick else 30, samples, 10.0 if args.quick else 30.0)
     _print(split, mixed, over)
     load.OUT.mkdir(exist_ok=True)

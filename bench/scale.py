@@ -193,6 +193,10 @@ def overload_section(count: int, samples: int, time_limit_s: float) -> dict[str,
         "accepted": len(done), "refused": len(refused),
         "other": [a["status"] for a in answers if a["status"] not in (200, 503)],
         "refused_types": sorted({a.get("type", "") for a in refused}),
+        # How many of each, and how soon each kind was told (at arrival, or at the limit).
+        "refused_by_type": {t: {"count": len(ts), "max_s": max(a["seconds"] for a in ts)}
+                            for t in sorted({a.get("type", "") for a in refused})
+                            for ts in [[a for a in refused if a.get("type", "") == t]]},
         "refused_max_s": max((a["seconds"] for a in refused), default=None),
         "refused_p50_s": float(np.median([a["seconds"] for a in refused])) if refused else None,
         "accepted_max_s": max((a["seconds"] for a in done), default=None),
@@ -233,9 +237,11 @@ def _print(split: dict[str, Any], mixed: dict[str, Any], over: dict[str, Any]) -
           f"{mixed['recheck']['different']}")
     print(f"\n## Overload: {over['requests']} concurrent {over['samples']:.0e}-sample requests, "
           f"2 workers (CPU load {over['load_before']:.2f} / {over['load_after']:.2f})\n")
+    kinds = ", ".join(f"{t} {v['count']}, slowest {v['max_s']:.2f} s"
+                      for t, v in over["refused_by_type"].items()) or "none"
     print(f"accepted {over['accepted']} (all samples drawn: {over['accepted_all_samples']}, "
           f"slowest {over['accepted_max_s'] or 0:.1f} s), refused {over['refused']} "
-          f"{over['refused_types']} (p50 {over['refused_p50_s'] or 0:.3f} s, slowest "
+          f"({kinds}; p50 {over['refused_p50_s'] or 0:.3f} s, slowest "
           f"{over['refused_max_s'] or 0:.3f} s), other answers {over['other']}")
     print("\n## Ratios against the targets of issue 16\n")
     print("| figure | measured | target |")

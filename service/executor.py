@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import asyncio
 import threading
+import time
 from collections.abc import Awaitable, Callable, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
@@ -140,10 +141,10 @@ class ComputePool:
         future.add_done_callback(finished)
 
     def _drive(self, job: Job, per_sample: float, fn: Callable[..., Any],
-               args: tuple[Any, ...], kwargs: dict[str, Any]) -> Any:
+               args: tuple[Any, ...], kwargs: dict[str, Any], ends_at: float | None) -> Any:
         runner = _JobRunner(self.scheduler, job, per_sample, self.backend.remote)
         with spans.using(runner):
-            return fn(*args, **kwargs)
+            return fn(*args, **tasks.time_left(kwargs, ends_at))
 
     def _admit(self, cost: Cost, wall_limit_s: float) -> Job:
         try:
@@ -170,10 +171,11 @@ class ComputePool:
             raise RuntimeError("the computation pool is not started")
         cost = cost or Cost(samples=0)
         job = self._admit(cost, wall_limit_s)
+        ends_at = _limit_ends(kwargs)
         if cost.split:
-            future = drivers.submit(self._drive, job, cost.per_sample, fn, args, kwargs)
+            future = drivers.submit(self._drive, job, cost.per_sample, fn, args, kwargs, ends_at)
         else:
-            future = self.scheduler.submit(job, tasks.call_engine, fn, args, kwargs,
+            future = self.scheduler.submit(job, tasks.call_engine, fn, args, kwargs, ends_at,
                                            work=cost.work, span=False)
         self._counted(future, job)
         try:
@@ -205,6 +207,13 @@ class ComputePool:
             raise ComputationUnavailable(
                 ("body",), f"the computation cluster could not run this request ({exc}); try "
                 "again", "worker_lost") from None
+
+
+def _limit_ends(kwargs: dict[str, Any]) -> float | None:
+    """When the call's own time limit ends, counted from now (its arrival), as time.time()."""
+    precision = kwargs.get("precision")
+    limit = getattr(precision, "time_limit_s", None)
+    return None if limit is None else time.time() + float(limit)
 
 
 class _ClientGone(Exception):

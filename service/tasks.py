@@ -18,15 +18,35 @@ from dataclasses import replace
 from typing import Any
 
 from core import spans
+from core.precision import Precision
 
 _CACHED_GROUPS = 8
 _groups: OrderedDict[bytes, Any] = OrderedDict()
 _groups_lock = threading.Lock()
 
 
-def call_engine(fn: Callable[..., Any], args: tuple[Any, ...], kwargs: dict[str, Any]) -> Any:
+# What a call that starts after its time limit still gets: the engine then draws one short
+# block and answers with its error (core.precision.LATE_BLOCK), not nothing.
+LATE_START_S = 1e-3
+
+
+def call_engine(fn: Callable[..., Any], args: tuple[Any, ...], kwargs: dict[str, Any],
+                ends_at: float | None = None) -> Any:
     """Call the engine (a module-level name every executor can pickle)."""
-    return fn(*args, **kwargs)
+    return fn(*args, **time_left(kwargs, ends_at))
+
+
+def time_left(kwargs: dict[str, Any], ends_at: float | None) -> dict[str, Any]:
+    """The call's keywords with its time limit counted from the request's arrival: `ends_at`
+    is when the limit ends (time.time(), comparable across processes). The engine counts its
+    limit from its own start, so a call that waited for a slot or a driver would otherwise
+    overrun it, and the server's wall limit, by the time it waited."""
+    precision = kwargs.get("precision")
+    if ends_at is None or not isinstance(precision, Precision) or precision.time_limit_s is None:
+        return kwargs
+    left = max(ends_at - time.time(), LATE_START_S)
+    return {**kwargs, "precision": replace(precision,
+                                           time_limit_s=min(precision.time_limit_s, left))}
 
 
 def pack_group(group: Any) -> bytes:

@@ -199,3 +199,35 @@ def test_a_thread_lost_in_between_does_not_leave_the_slot_taken(one_slot):
     done = threading.Event()
     one_slot.submit(job, done.set, work=0.0, span=False).result(timeout=10)
     assert done.is_set()
+
+
+def test_a_time_limit_counts_from_arrival_not_from_when_a_driver_was_free():
+    # Four split requests with a 1 s time limit on a pool with two driver threads: the two
+    # that wait for a driver must still answer at their limit with what they drew (the
+    # engine's own contract, core.precision), not overrun into a 503 at the wall limit.
+    import core
+
+    pool = ComputePool(kind="thread", workers=1, metrics=Metrics())
+    pool.start()
+    model = core.Portfolio(lines=[core.Line(count=core.Fixed(n=10),
+                                            severity=core.Lognormal(mu=0.0, sigma=1.0))])
+    try:
+        pool.scheduler.rate["large"] = 1e-12  # admit all four
+
+        async def one() -> tuple[float, str]:
+            started = time.perf_counter()
+            result = await pool.run(
+                core.estimate_exceedance, model, [30.0], wall_limit_s=1.8,
+                cost=Cost(samples=10_000_000, per_sample=10.0, split=True),
+                method="conditional", seed=1,
+                precision=core.Precision(samples=10_000_000, time_limit_s=1.0))
+            return time.perf_counter() - started, result.stopped_by
+
+        async def four() -> list[tuple[float, str]]:
+            return list(await asyncio.gather(*(one() for _ in range(4))))
+
+        answers = asyncio.run(four())
+    finally:
+        pool.shutdown()
+    assert [stop for _, stop in answers] == ["time_limit"] * 4, answers
+    assert max(seconds for seconds, _ in answers) < 1.8, answers

@@ -10,8 +10,8 @@ the quantities (common practice), not tuning: a healthy estimator never trips th
 A Monte Carlo figure with a zero-width interval is not exact: with every sampled contribution
 equal the spread is simply unobserved. Its interval is widened by the no-hit rule (a probability
 of 1 from n samples gets [0.05^(1/n), 1], the rule of three mirrored; valid for contributions
-bounded by 1), and any figure other than 1 is also flagged. Only figures the engine knows in closed form carry
-`exact = True` in their diagnostics.
+bounded by 1), and any figure other than 1 is also flagged. Only figures the engine knows in
+closed form carry `exact = True` in their diagnostics.
 """
 
 from __future__ import annotations

@@ -194,7 +194,7 @@ class Conditional(Estimator):
         return plan_plain(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
-                      seed: int) -> BlockFn:
+                      seed: int, *, deadline: float | None = None) -> BlockFn:
         return sampler(portfolio, points)
 
 

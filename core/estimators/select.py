@@ -12,6 +12,7 @@ The pilot's size scales with the request (pilot_samples).
 from __future__ import annotations
 
 import math
+import time
 from dataclasses import dataclass
 
 import numpy as np
@@ -104,10 +105,15 @@ def choose(portfolio: Portfolio, x: np.ndarray, seed: int, samples: int | None =
     """Trials ordered best first, and the reason in words. samples: as in `pilot`."""
     trials: list[Trial] = []
     refused: list[TailgaugeError] = []
+    skipped: list[str] = []
     size = PILOT_SAMPLES
     if samples is not None:
         size = pilot_samples(samples, block_size(portfolio))
     for name in candidates(portfolio):
+        if trials and deadline is not None and time.monotonic() > deadline:
+            # Out of time: the candidates piloted so far are the choice (said in the reason).
+            skipped.append(name)
+            continue
         try:
             trials.append(pilot(name, portfolio, x, seed, samples, deadline))
         except (LimitError, MethodError) as exc:
@@ -128,6 +134,8 @@ def choose(portfolio: Portfolio, x: np.ndarray, seed: int, samples: int | None =
     )
     if samples is not None:
         reason += "; the estimate draws apart from the pilots"
+    if skipped:
+        reason += f"; not piloted (time limit): {', '.join(skipped)}"
     if not best.reliable.all():
         reason += "; no candidate passed every reliability check in the pilot"
     return trials, reason

@@ -78,11 +78,8 @@ def check_probability(e: E) -> tuple[E, list[str]]:
     label = _label(e)
     problems = probability_problems(e.value, e.ci_low, e.ci_high, e.std_error)
     if problems:
-        value = min(max(e.value, 0.0), 1.0) if math.isfinite(e.value) else 0.0
-        low = min(max(e.ci_low, 0.0), value) if math.isfinite(e.ci_low) else 0.0
-        high = max(min(e.ci_high, 1.0), value) if math.isfinite(e.ci_high) else 1.0
         why = "invariant violated: " + "; ".join(problems)
-        out = dataclasses.replace(e, value=value, ci_low=low, ci_high=high,
+        out = dataclasses.replace(_clipped_probability(e),
                                   diagnostics=flagged(e.diagnostics, why))
         return out, [f"{label}: {why}; the figure is not to be trusted"]
     spread = e.ci_high - e.ci_low
@@ -110,6 +107,14 @@ def _unobserved_spread(e: E, label: str) -> tuple[E, list[str]]:
            f"interval [{low:.6g}, {high:.6g}] bounds the share of samples that would differ")
     return (dataclasses.replace(widened, diagnostics=flagged(e.diagnostics, why)),
             [f"{label}: {why}"])
+
+
+def _clipped_probability(p: Any) -> Any:
+    """A probability interval record with value and ends clipped into [0, 1], ordered."""
+    value = min(max(p.value, 0.0), 1.0) if math.isfinite(p.value) else 0.0
+    low = min(max(p.ci_low, 0.0), value) if math.isfinite(p.ci_low) else 0.0
+    high = max(min(p.ci_high, 1.0), value) if math.isfinite(p.ci_high) else 1.0
+    return dataclasses.replace(p, value=value, ci_low=low, ci_high=high)
 
 
 def check_monotone(estimates: Sequence[E], at: Sequence[float]) -> tuple[list[E], list[str]]:
@@ -201,7 +206,10 @@ def check_tail(measures: Sequence[M], layers: Sequence[L],
             value = min(max(el.value, 0.0), cap) if math.isfinite(el.value) else 0.0
             fixed = dataclasses.replace(el, value=value, ci_low=min(max(el.ci_low, 0.0), value),
                                         ci_high=max(min(el.ci_high, cap), value))
-            ly = dataclasses.replace(ly, expected_loss=fixed,
+            probs = {name: _clipped_probability(getattr(ly, name))
+                     for name in ("probability_attach", "probability_exhaust")
+                     if getattr(ly, name) is not None}
+            ly = dataclasses.replace(ly, expected_loss=fixed, **probs,
                                      diagnostics=flagged(ly.diagnostics, why))
             notes.append(f"layer {ly.attachment:g} xs: {why}")
         out_l.append(ly)

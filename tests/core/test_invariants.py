@@ -146,3 +146,21 @@ def test_retention_of_1e18_gives_no_zero_width_interval():
     assert not e.diagnostics.exact and (e.std_error is None or e.std_error > 0)
     if e.std_error is None:
         assert not e.diagnostics.reliable
+
+
+def test_layer_attachment_probability_above_one_is_clipped_and_flagged():
+    # Found by the property tests: a layer's P(S > attachment) of 1.023 was flagged but sent
+    # as is; a probability is in [0, 1] (a fact of the quantity), so it is clipped as well.
+    from core.invariants import check_tail
+    from core.results import Interval, LayerEstimate
+
+    attach = Interval(value=1.0234, ci_low=0.9007, ci_high=1.0, std_error=0.0626)
+    layer = LayerEstimate(attachment=0.0, limit=1.0,
+                          expected_loss=Interval(value=0.5, ci_low=0.4, ci_high=0.6,
+                                                 std_error=0.05),
+                          probability_attach=attach, probability_exhaust=None,
+                          diagnostics=_diag())
+    _, (out,), notes = check_tail([], [layer])
+    p = out.probability_attach
+    assert 0.0 <= p.ci_low <= p.value <= p.ci_high <= 1.0
+    assert not out.diagnostics.reliable and notes

@@ -14,8 +14,11 @@ time, to loopback only; it stops by itself. Classes:
 - ``runs``: POST /v1/runs of a 5-item batch of cheap requests, then GET of the run.
 
 Memory is the resident set (VmRSS) of the server process and of its pool workers, sampled
-every half second. Prints markdown tables and writes bench/out/load.json. Numbers are
-measurements, not pass/fail checks; the machine may be shared, so they are noisy.
+every half second. After the load, up to ``--recheck`` of the cheap and heavy requests are sent
+again one at a time: their answers must be the ones given under load (same seed, same figures).
+The CPU load average is printed before and after (the machine may be shared). Prints markdown
+tables and writes bench/out/load.json. Numbers are measurements, not pass/fail checks; the
+machine may be shared, so they are noisy.
 """
 
 from __future__ import annotations
@@ -54,9 +57,12 @@ def _cheap(seed: int) -> dict[str, Any]:
             "precision": {"samples": 2000}, "seed": seed}
 
 
-def _heavy(seed: int) -> dict[str, Any]:
+HEAVY_SAMPLES = 200_000
+
+
+def _heavy(seed: int, samples: int = HEAVY_SAMPLES) -> dict[str, Any]:
     return {"portfolio": {"lines": [LOGNORMAL, GAMMA]}, "levels": [0.99, 0.995, 0.999],
-            "precision": {"samples": 200_000}, "seed": seed}
+            "precision": {"samples": samples}, "seed": seed}
 
 
 def _batch(seed: int) -> dict[str, Any]:
@@ -71,6 +77,9 @@ class Budget:
     max_requests: int
     concurrency: int
     workers: int
+    # Smoke runs shrink the heavy class and the server's split size with it (still split).
+    heavy_samples: int = HEAVY_SAMPLES
+    split_samples: int | None = None  # the server's setting; None: its default
 
 
 @dataclass
@@ -78,6 +87,7 @@ class Record:
     latencies: dict[str, list[float]] = field(default_factory=dict)
     errors: dict[str, dict[str, int]] = field(default_factory=dict)
     memory: list[tuple[float, float, float]] = field(default_factory=list)  # t, server, pool
+    answers: dict[tuple[str, int], Any] = field(default_factory=dict)  # (class, seed) -> figures
 
     def add(self, kind: str, seconds: float, error: str | None) -> None:
         self.latencies.setdefault(kind, []).append(seconds)
@@ -118,11 +128,14 @@ def _children(pid: int) -> list[int]:
     return found
 
 
-def _start_server(data_dir: Path, workers: int) -> tuple[subprocess.Popen[bytes], str]:
+def _start_server(data_dir: Path, workers: int, split_samples: int | None = None
+                  ) -> tuple[subprocess.Popen[bytes], str]:
     port = _free_port()
     env = {k: v for k, v in os.environ.items() if not k.startswith("TAILGAUGE_")}
     env.update({"TAILGAUGE_DATA_DIR": str(data_dir), "TAILGAUGE_EXECUTOR": "process",
                 "TAILGAUGE_WORKERS": str(workers), "PYTHONPATH": str(ROOT)})
+    if split_samples is not None:
+        env["TAILGAUGE_SPLIT_SAMPLES"] = str(split_samples)
     process = subprocess.Popen(
         [sys.executable, "-m", "uvicorn", "service.app:app", "--host", HOST, "--port",
          str(port), "--log-level", "warning"],
@@ -142,19 +155,48 @@ def _start_server(data_dir: Path, workers: int) -> tuple[subprocess.Popen[bytes]
     raise RuntimeError("the server did not come up within 60 s")
 
 
-async def _one(client: httpx.AsyncClient, kind: str, seed: int) -> str | None:
+def figures(body: Any) -> Any:
+    """A response body without its timings: what must not change between runs."""
+    if isinstance(body, dict):
+        return {k: figures(v) for k, v in body.items() if k != "elapsed_s"}
+    if isinstance(body, list):
+        return [figures(v) for v in body]
+    return body
+
+
+async def _one(client: httpx.AsyncClient, kind: str, seed: int,
+               answers: dict[tuple[str, int], Any] | None = None,
+               heavy_samples: int = HEAVY_SAMPLES) -> str | None:
     """Send one request of the class; the error it met, or None."""
     if kind == "health":
         response = await client.get("/v1/health")
     elif kind == "cheap":
         response = await client.post("/v1/exceedance", json=_cheap(seed))
     elif kind == "heavy":
-        response = await client.post("/v1/risk-measures", json=_heavy(seed))
+        response = await client.post("/v1/risk-measures", json=_heavy(seed, heavy_samples))
     else:
         response = await client.post("/v1/runs", json=_batch(seed))
         if response.status_code == 202:
             response = await client.get(f"/v1/runs/{response.json()['run_id']}")
+    if answers is not None and kind in ("cheap", "heavy") and response.is_success:
+        answers[(kind, seed)] = figures(response.json())
     return None if response.is_success else str(response.status_code)
+
+
+async def _recheck(base: str, record: Record, most: int,
+                   heavy_samples: int = HEAVY_SAMPLES) -> dict[str, int]:
+    """Send some of the load's cheap and heavy requests again, one at a time; count the
+    answers that differ from those given under load."""
+    checked = {"checked": 0, "different": 0}
+    picks = [key for kind in ("cheap", "heavy")
+             for key in sorted(k for k in record.answers if k[0] == kind)[: most // 2]]
+    async with httpx.AsyncClient(base_url=base, timeout=120) as client:
+        for kind, seed in picks:
+            alone: dict[tuple[str, int], Any] = {}
+            await _one(client, kind, seed, alone, heavy_samples)
+            checked["checked"] += 1
+            checked["different"] += alone.get((kind, seed)) != record.answers[(kind, seed)]
+    return checked
 
 
 async def _sample_memory(pid: int, record: Record, started: float, stop: asyncio.Event) -> None:
@@ -183,7 +225,8 @@ async def _load(base: str, pid: int, budget: Budget) -> tuple[Record, float]:
                 kind = MIX[i % len(MIX)]
                 begun = time.perf_counter()
                 try:
-                    error = await _one(client, kind, seed=1000 + i)
+                    error = await _one(client, kind, seed=1000 + i, answers=record.answers,
+                                       heavy_samples=budget.heavy_samples)
                 except httpx.TransportError as exc:
                     error = type(exc).__name__
                 record.add(kind, time.perf_counter() - begun, error)
@@ -220,10 +263,15 @@ def _memory_rows(record: Record, rows: int = 8) -> list[dict[str, float]]:
 
 
 def _print_tables(latency: list[dict[str, Any]], memory: list[dict[str, float]],
-                  elapsed: float, budget: Budget) -> None:
+                  elapsed: float, budget: Budget, loads: tuple[float, float],
+                  recheck: dict[str, int]) -> None:
     total = sum(row["requests"] for row in latency)
     print(f"\n{total} requests in {elapsed:.1f} s ({total / elapsed:.1f}/s), "
-          f"{budget.concurrency} connections, {budget.workers} pool workers\n")
+          f"{budget.concurrency} connections, {budget.workers} pool workers; CPU load "
+          f"average (1 min) {loads[0]:.2f} before, {loads[1]:.2f} after, "
+          f"{os.cpu_count()} CPUs\n")
+    print(f"answers sent again alone: {recheck['checked']}, different from under load: "
+          f"{recheck['different']}\n")
     print("| class | requests | errors | p50 ms | p99 ms | max ms |")
     print("|---|---:|---:|---:|---:|---:|")
     for row in latency:
@@ -243,16 +291,22 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--max-requests", type=int, default=3000, help="at most 100,000")
     parser.add_argument("--concurrency", type=int, default=8, help="connections (at most 64)")
     parser.add_argument("--workers", type=int, default=2, help="server pool workers")
+    parser.add_argument("--recheck", type=int, default=20,
+                        help="requests sent again alone after the load (at most 200)")
     args = parser.parse_args(argv)
     budget = Budget(duration_s=min(args.duration, 600.0),
                     max_requests=min(args.max_requests, 100_000),
                     concurrency=max(1, min(args.concurrency, 64)), workers=max(1, args.workers))
     if args.quick:
         budget = Budget(duration_s=5.0, max_requests=60, concurrency=4, workers=budget.workers)
+    recheck_most = max(0, min(args.recheck, 200)) if not args.quick else 4
     with tempfile.TemporaryDirectory(prefix="tailgauge-load-") as tmp:
         process, base = _start_server(Path(tmp) / "data", budget.workers)
         try:
+            load_before = os.getloadavg()[0]
             record, elapsed = asyncio.run(_load(base, process.pid, budget))
+            load_after = os.getloadavg()[0]
+            recheck = asyncio.run(_recheck(base, record, recheck_most))
         finally:
             process.terminate()
             try:
@@ -261,11 +315,13 @@ def main(argv: list[str] | None = None) -> int:
                 process.kill()
                 process.wait()
     latency, memory = _latency_rows(record), _memory_rows(record)
-    _print_tables(latency, memory, elapsed, budget)
+    _print_tables(latency, memory, elapsed, budget, (load_before, load_after), recheck)
     OUT.mkdir(exist_ok=True)
     name = "load_quick.json" if args.quick else "load.json"
     (OUT / name).write_text(json.dumps({
         "budget": budget.__dict__, "elapsed_s": elapsed, "latency": latency,
+        "cpu_load": {"before": load_before, "after": load_after, "cpus": os.cpu_count()},
+        "recheck": recheck,
         "memory": [{"t_s": t, "server_mib": s, "pool_mib": p} for t, s, p in record.memory],
     }, indent=2) + "\n", encoding="utf-8")
     return 0

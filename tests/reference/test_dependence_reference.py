@@ -187,6 +187,26 @@ def test_recursion_refuses_a_dependent_portfolio() -> None:
         tail_estimates(pf, levels=[0.99], method="recursion")
 
 
+@pytest.mark.parametrize("method", ["conditional", "conditional_is", "radial"])
+def test_amount_only_methods_refuse_copula_coupled_lines(method: str) -> None:
+    # These samplers exist only for correlated lognormal amounts (ABJR 2011, directional,
+    # Kortschak-Hashorva 2013); on compound lines they once ran mean_shift under their name.
+    lines = [Line(count=Poisson(mean=2.0), severity=Gamma(shape=2.0, scale=1.0)),
+             Line(count=Poisson(mean=3.0), severity=Gamma(shape=1.0, scale=2.0))]
+    pf = Portfolio(lines=lines, dependence=Copula(kind="gaussian",
+                                                   correlation=np.array([[1, 0.5], [0.5, 1]])))
+    for call in (lambda: exceedance(pf, [30.0], method=method),
+                 lambda: tail_estimates(pf, levels=[0.99], method=method)):
+        with pytest.raises(MethodError) as info:
+            call()
+        assert info.value.parameter == "method"
+        assert "auto, crude, mean_shift" in str(info.value) and method in str(info.value)
+    # the same method on lognormal amounts under a gaussian copula is served, and says so
+    res = exceedance(_amounts([0.0, 0.0], [1.0, 1.0], np.array([[1, 0.5], [0.5, 1]])), [30.0],
+                     method=method, precision=Precision(samples=2000), seed=3)
+    assert res.method == method
+
+
 def test_student_t_copula_two_lognormals_match_quadrature() -> None:
     # Reference: for a bivariate t (df nu, correlation rho), T2 | T1 = t is rho t plus
     # sqrt((nu + t^2)(1 - rho^2) / (nu + 1)) times a t with nu + 1 degrees of freedom (the

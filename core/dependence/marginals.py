@@ -139,7 +139,11 @@ _THREADS: list[ThreadpoolController] = []  # one controller: each scans the load
 
 
 def _controller() -> ThreadpoolController:
+    """Built once, after the recursion's imports have loaded the BLAS it calls (numpy's and
+    scipy.linalg's), which are the libraries it must see."""
     if not _THREADS:
+        import core.recursion  # noqa: F401  (loads scipy.linalg before the scan)
+
         _THREADS.append(ThreadpoolController())
     return _THREADS[0]
 

@@ -14,8 +14,11 @@ time, to loopback only; it stops by itself. Classes:
 - ``runs``: POST /v1/runs of a 5-item batch of cheap requests, then GET of the run.
 
 Memory is the resident set (VmRSS) of the server process and of its pool workers, sampled
-every half second. Prints markdown tables and writes bench/out/load.json. Numbers are
-measurements, not pass/fail checks; the machine may be shared, so they are noisy.
+every half second. After the load, up to ``--recheck`` of the cheap and heavy requests are sent
+again one at a time: their answers must be the ones given under load (same seed, same figures).
+The CPU load average is printed before and after (the machine may be shared). Prints markdown
+tables and writes bench/out/load.json. Numbers are measurements, not pass/fail checks; the
+machine may be shared, so they are noisy.
 """
 
 from __future__ import annotations
@@ -78,6 +81,7 @@ class Record:
     latencies: dict[str, list[float]] = field(default_factory=dict)
     errors: dict[str, dict[str, int]] = field(default_factory=dict)
     memory: list[tuple[float, float, float]] = field(default_factory=list)  # t, server, pool
+    answers: dict[tuple[str, int], Any] = field(default_factory=dict)  # (class, seed) -> figures
 
     def add(self, kind: str, seconds: float, error: str | None) -> None:
         self.latencies.setdefault(kind, []).append(seconds)
@@ -142,7 +146,17 @@ def _start_server(data_dir: Path, workers: int) -> tuple[subprocess.Popen[bytes]
     raise RuntimeError("the server did not come up within 60 s")
 
 
-async def _one(client: httpx.AsyncClient, kind: str, seed: int) -> str | None:
+def figures(body: Any) -> Any:
+    """A response body without its timings: what must not change between runs."""
+    if isinstance(body, dict):
+        return {k: figures(v) for k, v in body.items() if k != "elapsed_s"}
+    if isinstance(body, list):
+        return [figures(v) for v in body]
+    return body
+
+
+async def _one(client: httpx.AsyncClient, kind: str, seed: int,
+               answers: dict[tuple[str, int], Any] | None = None) -> str | None:
     """Send one request of the class; the error it met, or None."""
     if kind == "health":
         response = await client.get("/v1/health")
@@ -154,7 +168,24 @@ async def _one(client: httpx.AsyncClient, kind: str, seed: int) -> str | None:
         response = await client.post("/v1/runs", json=_batch(seed))
         if response.status_code == 202:
             response = await client.get(f"/v1/runs/{response.json()['run_id']}")
+    if answers is not None and kind in ("cheap", "heavy") and response.is_success:
+        answers[(kind, seed)] = figures(response.json())
     return None if response.is_success else str(response.status_code)
+
+
+async def _recheck(base: str, record: Record, most: int) -> dict[str, int]:
+    """Send some of the load's cheap and heavy requests again, one at a time; count the
+    answers that differ from those given under load."""
+    checked = {"checked": 0, "different": 0}
+    picks = [key for kind in ("cheap", "heavy")
+             for key in sorted(k for k in record.answers if k[0] == kind)[: most // 2]]
+    async with httpx.AsyncClient(base_url=base, timeout=120) as client:
+        for kind, seed in picks:
+            alone: dict[tuple[str, int], Any] = {}
+            await _one(client, kind, seed, alone)
+            checked["checked"] += 1
+            checked["different"] += alone.get((kind, seed)) != record.answers[(kind, seed)]
+    return checked
 
 
 async def _sample_memory(pid: int, record: Record, started: float, stop: asyncio.Event) -> None:
@@ -183,7 +214,7 @@ async def _load(base: str, pid: int, budget: Budget) -> tuple[Record, float]:
                 kind = MIX[i % len(MIX)]
                 begun = time.perf_counter()
                 try:
-                    error = await _one(client, kind, seed=1000 + i)
+                    error = await _one(client, kind, seed=1000 + i, answers=record.answers)
                 except httpx.TransportError as exc:
                     error = type(exc).__name__
                 record.add(kind, time.perf_counter() - begun, error)
@@ -220,10 +251,15 @@ def _memory_rows(record: Record, rows: int = 8) -> list[dict[str, float]]:
 
 
 def _print_tables(latency: list[dict[str, Any]], memory: list[dict[str, float]],
-                  elapsed: float, budget: Budget) -> None:
+                  elapsed: float, budget: Budget, loads: tuple[float, float],
+                  recheck: dict[str, int]) -> None:
     total = sum(row["requests"] for row in latency)
     print(f"\n{total} requests in {elapsed:.1f} s ({total / elapsed:.1f}/s), "
-          f"{budget.concurrency} connections, {budget.workers} pool workers\n")
+          f"{budget.concurrency} connections, {budget.workers} pool workers; CPU load "
+          f"average (1 min) {loads[0]:.2f} before, {loads[1]:.2f} after, "
+          f"{os.cpu_count()} CPUs\n")
+    print(f"answers sent again alone: {recheck['checked']}, different from under load: "
+          f"{recheck['different']}\n")
     print("| class | requests | errors | p50 ms | p99 ms | max ms |")
     print("|---|---:|---:|---:|---:|---:|")
     for row in latency:
@@ -243,16 +279,22 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--max-requests", type=int, default=3000, help="at most 100,000")
     parser.add_argument("--concurrency", type=int, default=8, help="connections (at most 64)")
     parser.add_argument("--workers", type=int, default=2, help="server pool workers")
+    parser.add_argument("--recheck", type=int, default=20,
+                        help="requests sent again alone after the load (at most 200)")
     args = parser.parse_args(argv)
     budget = Budget(duration_s=min(args.duration, 600.0),
                     max_requests=min(args.max_requests, 100_000),
                     concurrency=max(1, min(args.concurrency, 64)), workers=max(1, args.workers))
     if args.quick:
         budget = Budget(duration_s=5.0, max_requests=60, concurrency=4, workers=budget.workers)
+    recheck_most = max(0, min(args.recheck, 200)) if not args.quick else 4
     with tempfile.TemporaryDirectory(prefix="tailgauge-load-") as tmp:
         process, base = _start_server(Path(tmp) / "data", budget.workers)
         try:
+            load_before = os.getloadavg()[0]
             record, elapsed = asyncio.run(_load(base, process.pid, budget))
+            load_after = os.getloadavg()[0]
+            recheck = asyncio.run(_recheck(base, record, recheck_most))
         finally:
             process.terminate()
             try:
@@ -261,11 +303,13 @@ def main(argv: list[str] | None = None) -> int:
                 process.kill()
                 process.wait()
     latency, memory = _latency_rows(record), _memory_rows(record)
-    _print_tables(latency, memory, elapsed, budget)
+    _print_tables(latency, memory, elapsed, budget, (load_before, load_after), recheck)
     OUT.mkdir(exist_ok=True)
     name = "load_quick.json" if args.quick else "load.json"
     (OUT / name).write_text(json.dumps({
         "budget": budget.__dict__, "elapsed_s": elapsed, "latency": latency,
+        "cpu_load": {"before": load_before, "after": load_after, "cpus": os.cpu_count()},
+        "recheck": recheck,
         "memory": [{"t_s": t, "server_mib": s, "pool_mib": p} for t, s, p in record.memory],
     }, indent=2) + "\n", encoding="utf-8")
     return 0

@@ -19,7 +19,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from core import degenerate
+from core import degenerate, spans
 from core.curves import (
     GRID,
     PILOT_SAMPLES,
@@ -34,7 +34,6 @@ from core.curves import (
     layout_block,
     point_columns,
 )
-from core.diagnostics import ContributionStats
 from core.errors import MethodError
 from core.estimators import registry, select
 from core.estimators.base import BlockFn, Group, work_per_sample
@@ -143,8 +142,10 @@ def _pilot_search(name: str, portfolio: Portfolio, q: np.ndarray, seed: int
             pilot = registry.get(registry.get(name).grid_pilot or name)
             values = pilot.contributions(portfolio, a, guesses, seed)
             stream_name = pilot.stream
-        stats_ = ContributionStats.from_samples(values(
-            PILOT_SAMPLES, Stream(Purpose.MEASURE_PILOT, stream_name).rng(seed, widening)))
+        # Block `widening` of the pilot stream, drawn where the estimate's spans run.
+        group = Group((0,), values, work_per_sample(portfolio.expected_claims, 2 * a.size))
+        stats_ = spans.draw(group, Stream(Purpose.MEASURE_PILOT, stream_name), seed,
+                            [(widening, PILOT_SAMPLES)])
         curves = _Curves(a, stats_)
         low_side = []
         above = False

@@ -10,6 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from core import spans
 from core.diagnostics import ContributionStats
 from core.errors import ParameterError
 from core.estimators.base import Group
@@ -75,11 +76,9 @@ def draw_blocks(group: Group, stream: Stream, seed: int, total: int, block: int,
     """`total` samples of a group in the blocks of the plan from block `start` on, as
     run_group draws them; a run continued from it gives what one longer run would (a pilot
     that counts towards the estimate)."""
-    parts = [ContributionStats.from_samples(group.block_values(m, stream.rng(seed, b)),
-                                            top_k=TOP_K, chunk=b)
-             for b, m in blocks(total, block, start=start)]
-    return GroupRun(ContributionStats.combine(parts), total, "samples",
-                    start + math.ceil(total / block))
+    stats = spans.draw(group, stream, seed, list(blocks(total, block, start=start)),
+                       top_k=TOP_K)
+    return GroupRun(stats, total, "samples", start + math.ceil(total / block))
 
 
 def _worst_relative_error(stats: ContributionStats) -> float:
@@ -106,17 +105,22 @@ def run_group(
         next_check = max(next_check, done)
     cap = precision.cap
     target = precision.relative_error
+    runner = spans.current()
     while True:
-        for b, m in blocks(next_check - done, block, start=index):
-            if done == 0 and deadline is not None and time.monotonic() > deadline:
-                # Out of time before this sample set began (earlier groups, adaptation): a
-                # short first block still gives an estimate with its error, not a whole block
-                # past the limit (time-limited figures are not reproducible anyway).
-                m = min(m, LATE_BLOCK)
-            values = group.block_values(m, stream.rng(seed, b))
-            parts.append(ContributionStats.from_samples(values, top_k=TOP_K, chunk=b))
-            done, index = done + m, b + 1
-            if deadline is not None and time.monotonic() > deadline:
+        # The round's blocks are fixed before anything runs, so whoever runs which span (the
+        # current runner, core.spans), the merged figures are the same.
+        plan = list(blocks(next_check - done, block, start=index))
+        if done == 0 and plan and deadline is not None and time.monotonic() > deadline:
+            # Out of time before this sample set began (earlier groups, adaptation): a
+            # short first block still gives an estimate with its error, not a whole block
+            # past the limit (time-limited figures are not reproducible anyway).
+            plan[0] = (plan[0][0], min(plan[0][1], LATE_BLOCK))
+        cut = spans.cut(group, stream, seed, plan, top_k=TOP_K, width=runner.width,
+                        deadline=spans.wall_deadline(deadline))
+        for result in runner(cut):
+            parts.append(result.stats)
+            done, index = done + result.samples, index + result.blocks
+            if not result.complete or (deadline is not None and time.monotonic() > deadline):
                 return GroupRun(ContributionStats.combine(parts), done, "time_limit", index)
         stats = ContributionStats.combine(parts)
         parts = [stats]

@@ -71,7 +71,8 @@ def create_app(settings: Settings | None = None, *, exit_on_start_failure: bool 
     with one line (for the module-level app an ASGI server runs) instead of raising."""
     settings = settings if settings is not None else Settings()
     instruments = Metrics()
-    pool = ComputePool(kind=settings.executor, workers=settings.workers, metrics=instruments)
+    pool = ComputePool(kind=settings.executor, workers=settings.workers, metrics=instruments,
+                       dask_scheduler=settings.dask_scheduler)
     runs_worker = RunWorker(settings=settings, pool=pool, metrics=instruments)
     try:
         auth: AuthConfig | AuthConfigError = load_auth(settings)

@@ -36,6 +36,7 @@ def _parser() -> argparse.ArgumentParser:
     serve.add_argument("--port", type=int, help="TCP port (default 8000)")
     serve.add_argument("--data-dir", type=Path, help="directory for the service's files")
     serve.add_argument("--workers", type=int, help="size of the computation pool")
+    _executor_flags(serve)
     run = commands.add_parser(
         "run", help="run a batch file (the body of POST /v1/runs) without a server",
         description="Exit status: 0 every item done, 1 some item failed (the others are in "
@@ -50,7 +51,16 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--report", type=Path, metavar="REPORT.html",
                      help="also write the run report: one self-contained HTML page")
     run.add_argument("--workers", type=int, help="size of the computation pool")
+    _executor_flags(run)
     return parser
+
+
+def _executor_flags(command: argparse.ArgumentParser) -> None:
+    command.add_argument("--executor", choices=("process", "thread", "dask"),
+                         help="kind of computation pool (default process)")
+    command.add_argument("--dask-scheduler", metavar="ADDRESS",
+                         help="Dask scheduler address for --executor dask "
+                         "(e.g. tcp://10.0.0.5:8786)")
 
 
 def _serve(args: argparse.Namespace) -> int:
@@ -61,7 +71,8 @@ def _serve(args: argparse.Namespace) -> int:
     from service.auth import AuthConfigError, load_auth
 
     given = {"host": args.host, "port": args.port, "data_dir": args.data_dir,
-             "workers": args.workers}
+             "workers": args.workers, "executor": args.executor,
+             "dask_scheduler": args.dask_scheduler}
     try:
         settings = Settings(**{k: v for k, v in given.items() if v is not None})
     except ValidationError as exc:
@@ -270,7 +281,8 @@ async def run_batch_file(
 
 
 def _run(args: argparse.Namespace) -> int:
-    given = {"workers": args.workers}
+    given = {"workers": args.workers, "executor": args.executor,
+             "dask_scheduler": args.dask_scheduler}
     try:
         settings = Settings(**{k: v for k, v in given.items() if v is not None})
     except ValidationError as exc:

@@ -29,7 +29,8 @@ def _metrics(request: Request) -> Metrics:
 
 
 def _context(request: Request) -> Context:
-    return Context(settings=_settings(request), pool=_pool(request), metrics=_metrics(request))
+    return Context(settings=_settings(request), pool=_pool(request), metrics=_metrics(request),
+                   gone=request.is_disconnected)
 
 
 SettingsDep = Annotated[Settings, Depends(_settings)]

@@ -9,7 +9,7 @@ for validation errors), the same for the HTTP handlers and for a failed batch it
 | core ``TailgaugeError`` (ParameterError, MethodError, LimitError) | 422 | parameter_error, ... |
 | request validation (FastAPI or pydantic) | 422 | pydantic's (greater_than, ...) |
 | a body that cannot be parsed (bad UTF-8, an over-long integer, nesting) | 422 | json_invalid |
-| ``ComputationUnavailable`` (wall-time backstop, lost worker) | 503 | time_limit, worker_lost |
+| ``ComputationUnavailable`` | 503 | time_limit, worker_lost, overloaded |
 | Starlette's 404 / 405 | 404 / 405 | not_found, method_not_allowed |
 | anything else (a bug) | 500 | internal_error |
 
@@ -47,13 +47,16 @@ RETRY_AFTER_S = 5
 
 
 class ComputationUnavailable(Exception):
-    """The computation could not be finished by the server (timeout, lost worker): 503."""
+    """The computation could not be finished by the server (timeout, lost worker, the queue
+    ahead too long to finish in time): 503, with Retry-After `retry_after_s` when known."""
 
-    def __init__(self, loc: Loc, message: str, kind: str) -> None:
+    def __init__(self, loc: Loc, message: str, kind: str,
+                 retry_after_s: int | None = None) -> None:
         super().__init__(message)
         self.loc = loc
         self.message = message
         self.kind = kind
+        self.retry_after_s = retry_after_s
 
 
 @dataclass(frozen=True)
@@ -118,7 +121,7 @@ def problem(exc: BaseException) -> Problem:
         return Problem(422, [validation_entry(e, ("body",)) for e in exc.errors()])
     if isinstance(exc, ComputationUnavailable):
         return Problem(503, [detail_entry(exc.loc, exc.message, exc.kind)],
-                       {"Retry-After": str(RETRY_AFTER_S)})
+                       {"Retry-After": str(exc.retry_after_s or RETRY_AFTER_S)})
     why = _unparsable(exc)
     if why is not None and (not isinstance(exc, StarletteHTTPException) or exc.status_code == 400):
         return Problem(422, [detail_entry(["body"], f"JSON decode error: {why}", "json_invalid")])

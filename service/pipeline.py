@@ -14,7 +14,7 @@ what the endpoint answers; the batch worker calls the same function.
 from __future__ import annotations
 
 import secrets
-from collections.abc import Callable
+from collections.abc import Awaitable, Callable
 from dataclasses import dataclass, field
 from typing import Any, Generic, Protocol, TypeVar, cast
 
@@ -22,8 +22,9 @@ from pydantic import BaseModel
 
 from core.errors import LimitError, TailgaugeError
 from core.parameter_risk import NestedResult
+from core.precision import Precision
 from service import limits, translate
-from service.executor import ComputePool
+from service.executor import ComputePool, Cost
 from service.metrics import Metrics
 from service.schemas.common import PrecisionSpec
 from service.settings import Settings
@@ -69,6 +70,8 @@ class Context:
     settings: Settings
     pool: ComputePool
     metrics: Metrics
+    # True once the HTTP client has gone (its queued work is then dropped); None in batches.
+    gone: Callable[[], Awaitable[bool]] | None = None
 
 
 Req = TypeVar("Req", bound=BaseModel)
@@ -101,12 +104,13 @@ async def run(resource: Resource[Req, Resp], request: Req, context: Context) -> 
     seed = seed_given if seed_given is not None else draw_seed()
     if not resource.precision:
         raw = await _engine(context, call, settings.time_limit_s + settings.time_limit_grace_s,
-                            seed=seed)
+                            Cost(samples=0), seed=seed)
         return resource.respond(request, raw, call, [])
     spec = cast(Computable, request)  # every such resource's request has a precision
     budget = limits.budget(spec.precision, settings)
-    raw = await _engine(context, call, budget.wall_limit_s, precision=budget.precision,
-                        seed=seed)
+    raw = await _engine(context, call, budget.wall_limit_s, _cost(call, budget.precision,
+                                                                  settings),
+                        precision=budget.precision, seed=seed)
     result, nested = raw if call.nested else (raw, None)
     context.metrics.samples.labels(resource.name).inc(resource.samples(result))
     notes = budget.warnings + budget.stop_warnings(
@@ -118,12 +122,22 @@ async def run(resource: Resource[Req, Resp], request: Req, context: Context) -> 
     return response
 
 
-async def _engine(context: Context, call: EngineCall, wall_limit_s: float, **extra: Any
-                  ) -> Any:
+def _cost(call: EngineCall, precision: Precision, settings: Settings) -> Cost:
+    """The call's sample budget and claims per sample (the scheduler's work proxy); a budget
+    of split_samples or more is split into block tasks across the workers."""
+    model = call.args[0] if call.args else call.subject
+    claims = getattr(model, "expected_claims", None)
+    per_sample = max(1.0, float(claims)) if isinstance(claims, int | float) else 1.0
+    samples = precision.cap
+    return Cost(samples=samples, per_sample=per_sample, split=samples >= settings.split_samples)
+
+
+async def _engine(context: Context, call: EngineCall, wall_limit_s: float, cost: Cost,
+                  **extra: Any) -> Any:
     """The engine call in the pool, its errors located at request fields."""
     try:
         return await context.pool.run(call.fn, *call.args, wall_limit_s=wall_limit_s,
-                                      **call.kwargs, **extra)
+                                      cost=cost, gone=context.gone, **call.kwargs, **extra)
     except TailgaugeError as exc:
         raise call.locate(translate.engine_error_path(exc)) from exc
     except (ArithmeticError, ValueError, MemoryError) as exc:

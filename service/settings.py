@@ -34,10 +34,23 @@ class Settings(BaseSettings):
         ge=1,
         description="Size of the computation pool (default: number of CPUs).",
     )
-    executor: Literal["process", "thread"] = Field(
+    executor: Literal["process", "thread", "dask"] = Field(
         default="process",
-        description="Kind of computation pool: processes (CPU work in parallel) or threads "
-        "(fallback where processes cannot be started).",
+        description="Kind of computation pool: processes (CPU work in parallel), threads "
+        "(fallback where processes cannot be started), or a Dask distributed cluster at "
+        "dask_scheduler (needs the 'dask' extra).",
+    )
+    dask_scheduler: str | None = Field(
+        default=None,
+        description="Address of the Dask scheduler for executor 'dask', e.g. "
+        "tcp://10.0.0.5:8786 (TAILGAUGE_DASK_SCHEDULER).",
+    )
+    split_samples: int = Field(
+        default=100_000,
+        ge=1,
+        description="Requests whose sample budget reaches this many samples are split into "
+        "block tasks across every worker (same figures to the last bit); smaller ones run "
+        "whole on one worker, ahead of the large ones' queued blocks.",
     )
     max_body_bytes: int = Field(
         default=1024 * 1024, ge=1, description="Largest accepted request body, in bytes (413)."

@@ -33,7 +33,7 @@ from pydantic import BaseModel, ValidationError
 import core
 from service import pipeline
 from service.datadir import DataDirLock, open_store
-from service.errors import detail_entry, problem
+from service.errors import ComputationUnavailable, detail_entry, problem
 from service.executor import ComputePool
 from service.metrics import Metrics
 from service.pipeline import draw_seed
@@ -64,6 +64,7 @@ log = logging.getLogger("tailgauge.runs")
 IDLE_POLL_S = 1.0  # an idle slot looks at the queue this often even without a wake-up
 COMMIT_RETRY_S = (0.2, 5.0)  # first and longest wait between commits of a held outcome
 TERMINAL = frozenset({"done", "failed", "cancelled"})
+OVERLOAD_WAIT_S = 5.0  # longest wait before an item refused for overload is offered again
 
 ItemCallback = Callable[[ItemRecord, RunRecord], None]
 Kind = pipeline.Resource[Any, Any]
@@ -223,7 +224,7 @@ async def compute_item(
     try:
         # Validated as FastAPI validates a body, so that the errors are the endpoint's.
         request = validate_request(kind, item.request)
-        response: BaseModel = await pipeline.run(kind, request, context)
+        response: BaseModel = await _run_when_admitted(kind, request, context)
     except Exception as exc:
         answer = problem(exc)
         if answer.kind == "worker_lost" and item.attempts < settings.run_max_attempts:
@@ -233,6 +234,18 @@ async def compute_item(
             log.exception("batch item %s of run %s raised", item.item_id, item.run_id)
         return Outcome(error=answer.detail)
     return Outcome(result=response.model_dump(mode="json", by_alias=True))
+
+
+async def _run_when_admitted(kind: Kind, request: BaseModel, context: pipeline.Context
+                             ) -> BaseModel:
+    # An HTTP caller refused for overload is told to come back; a batch item just waits.
+    while True:
+        try:
+            return await pipeline.run(kind, request, context)
+        except ComputationUnavailable as exc:
+            if exc.kind != "overloaded":
+                raise
+            await asyncio.sleep(min(OVERLOAD_WAIT_S, exc.retry_after_s or OVERLOAD_WAIT_S))
 
 
 # --- the worker -----------------------------------------------------------------------------
@@ -301,6 +314,8 @@ class RunWorker:
             log.warning("runs: %d interrupted items requeued, %d failed (started "
                         "run_max_attempts=%d times)", len(recovery.requeued),
                         len(recovery.failed), self.settings.run_max_attempts)
+        if self.settings.run_workers is None and self.pool.kind == "dask":
+            self.slots = self.pool.workers  # the cluster's threads, known once connected
         self._tasks = [asyncio.create_task(self._slot(), name=f"run-slot-{i}")
                        for i in range(self.slots)]
 
@@ -468,7 +483,8 @@ async def run_locally(
     """Run a batch to the end with a pool of its own and an in-memory store (BatchRejected
     if the batch is malformed); returns the body GET /v1/runs/{run_id} would give."""
     metrics = Metrics()
-    pool = ComputePool(kind=settings.executor, workers=settings.workers, metrics=metrics)
+    pool = ComputePool(kind=settings.executor, workers=settings.workers, metrics=metrics,
+                       dask_scheduler=settings.dask_scheduler)
     worker = RunWorker(
         settings=settings, pool=pool, metrics=metrics, kinds=kinds, on_item=on_item,
         store_factory=lambda: SqliteRunStore(path=":memory:"),

@@ -9,6 +9,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from core import spans
 from core.credit.estimators import CREDIT, CREDIT_METHODS, block_size, estimator, plan
 from core.credit.model import CreditModel
 from core.credit.moments import loss_moments
@@ -42,8 +43,8 @@ def choose(model: CreditModel, x: np.ndarray, seed: int) -> tuple[list[str], str
     for name in CREDIT_METHODS:
         cost = 0.0
         for g, group in enumerate(plan(name, model, probe)):
-            rng = Stream(Purpose.PILOT, estimator(name).stream_for(CREDIT), (g,)).rng(seed, 0)
-            stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
+            stream = Stream(Purpose.PILOT, estimator(name).stream_for(CREDIT), (g,))
+            stats = spans.draw(group, stream, seed, [(0, PILOT_SAMPLES)])
             mean = np.asarray(stats.mean(), dtype=float)
             se = np.asarray(stats.std_error(), dtype=float)
             with np.errstate(divide="ignore", invalid="ignore"):

@@ -23,6 +23,7 @@ from collections.abc import Sequence
 import numpy as np
 from scipy import stats
 
+from core import spans
 from core.credit.draws import Component, Sampler
 from core.credit.estimators import (
     CREDIT,
@@ -50,7 +51,6 @@ from core.curves import (
     layout_block,
     point_columns,
 )
-from core.diagnostics import ContributionStats
 from core.estimators import registry
 from core.estimators.base import BlockFn, Group
 from core.exceedance import check_seed
@@ -125,9 +125,10 @@ def _pilot_vars(model: CreditModel, name: str, q: np.ndarray, seed: int) -> list
     guesses = [guess_var(model, float(level)) for level in q]
     top = model.max_loss
     a = np.geomspace(max(min(guesses) / 20.0, 1e-9), min(max(guesses) * 20.0, top), 160)
-    sampler = _sampler(model, name, [min(g, 0.999 * top) for g in guesses])
-    stats_ = ContributionStats.from_samples(
-        _values(sampler, a)(PILOT_SAMPLES, _stream(Purpose.MEASURE_PILOT, name).rng(seed, 0)))
+    anchors = [min(g, 0.999 * top) for g in guesses]
+    sampler = _sampler(model, name, anchors)
+    group = Group((0,), _values(sampler, a), work(model, name, len(spread_out(anchors))))
+    stats_ = spans.draw(group, _stream(Purpose.MEASURE_PILOT, name), seed, [(0, PILOT_SAMPLES)])
     curves = _Curves(a, stats_)
     out = []
     for level, guess in zip(q, guesses, strict=True):

@@ -14,6 +14,7 @@ import math
 import numpy as np
 import numpy.typing as npt
 
+from core import spans
 from core.dependence import engine
 from core.dependence.amounts import lognormal_amounts
 from core.dependence.marginals import LineQuantile, line_quantiles
@@ -128,9 +129,9 @@ def _pilot_cost(name: str, portfolio: Portfolio, x: FloatArray, seed: int, measu
                 ) -> tuple[float, bool]:
     cost, reliable = 0.0, True
     for k, group in enumerate(_groups(name, portfolio, x, seed, measures=measures)):
-        rng = Stream(Purpose.PILOT, engine.estimator(name).stream_for(engine.DEPENDENT),
-                     (k,)).rng(seed, 0)
-        stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
+        stream = Stream(Purpose.PILOT, engine.estimator(name).stream_for(engine.DEPENDENT),
+                        (k,))
+        stats = spans.draw(group, stream, seed, [(0, PILOT_SAMPLES)])
         g = len(group.indices)
         mean = np.asarray(stats.mean(), dtype=float)[:g]
         se = np.asarray(stats.std_error(), dtype=float)[:g]

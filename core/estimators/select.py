@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from core.diagnostics import ContributionStats
+from core import spans
 from core.errors import LimitError, MethodError, TailgaugeError
 from core.estimators import registry
 from core.estimators.base import Group
@@ -67,8 +67,8 @@ def _pilot_stats(name: str, group: Group, g: int, seed: int, samples: int | None
     stream_name = registry.get(name).stream
     if samples is None:
         # Risk measures: a pilot on a stream of its own, never part of their estimate.
-        rng = Stream(Purpose.PILOT, stream_name, (g,)).rng(seed, 0)
-        stats = ContributionStats.from_samples(group.block_values(PILOT_SAMPLES, rng))
+        stats = spans.draw(group, Stream(Purpose.PILOT, stream_name, (g,)), seed,
+                           [(0, PILOT_SAMPLES)])
         return GroupRun(stats, PILOT_SAMPLES, "samples")
     # The first blocks of the estimate's own stream (core.exceedance._run uses the same key).
     stream = Stream(Purpose.SAMPLES, stream_name, (g,))

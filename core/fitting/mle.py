@@ -27,6 +27,19 @@ _NEWTON_STEPS = 8
 _SETTLED = 1e-3
 
 
+def _halved(nll: Callable[[Floats], float], z: Floats, step: Floats, f: float,
+            tries: int) -> tuple[float, float] | None:
+    """The first of step, step/2, step/4, ... (``tries`` in all) that does not raise the
+    objective, as (fraction taken, objective there); None when none of them does."""
+    t = 1.0
+    for _ in range(tries):
+        trial = nll(z + t * step)
+        if trial <= f:
+            return t, trial
+        t /= 2
+    return None
+
+
 def _newton(nll: Callable[[Floats], float], z: Floats, f: float) -> tuple[Floats, float]:
     """Newton steps on central-difference derivatives (steps a twentieth of each
     coordinate's natural scale), each kept only when it lowers the objective (halved up to
@@ -44,15 +57,11 @@ def _newton(nll: Callable[[Floats], float], z: Floats, f: float) -> tuple[Floats
             break  # not a descent direction: the Hessian is not positive definite here
         if decrement < 2e-10:
             break
-        t = 1.0
-        for _ in range(30):
-            trial = nll(z + t * step)
-            if trial <= f:
-                break
-            t /= 2
-        else:
+        taken = _halved(nll, z, np.asarray(step, dtype=np.float64), f, 30)
+        if taken is None:
             break
-        z, f = z + t * step, trial
+        t, f = taken
+        z = z + t * step
     return z, f
 
 
@@ -116,16 +125,11 @@ def chord(nll: Callable[[Floats], float], z0: Floats, metric: Floats,
         if not np.all(np.isfinite(g)):
             return None
         step = -inv @ g
-        t = 1.0
-        for _ in range(20):
-            trial = nll(z + t * step)
-            if trial <= f:
-                break
-            t /= 2
-        else:
+        taken = _halved(nll, z, step, f, 20)
+        if taken is None:
             return z if np.all(np.abs(step) <= 1e-2 * se) else None
-        moved = t * step
-        z, f = z + moved, trial
+        moved = taken[0] * step
+        z, f = z + moved, taken[1]
         if np.all(np.abs(moved) <= _SETTLED * se):
             return z
         g_new = fd.central(nll, z, steps)

@@ -32,7 +32,7 @@ def _same_law(law: ClaimCount, expected_pmf: np.ndarray) -> None:
     np.testing.assert_allclose(_pmf(law), expected_pmf, rtol=1e-9, atol=1e-15)
 
 
-@pytest.mark.parametrize(("law", "ref"), PAIRS, ids=repr)
+@pytest.mark.parametrize(("law", "ref"), PAIRS, ids=[repr(law) for law, _ in PAIRS])
 def test_pmf_cdf_and_moments_match_scipy(law: ClaimCount, ref) -> None:
     np.testing.assert_allclose(law.pmf(K), ref.pmf(K), rtol=1e-12, atol=1e-300)
     finite = ref.pmf(K) > 0

@@ -236,15 +236,17 @@ def test_student_t_copula_two_lognormals_match_quadrature() -> None:
 
 def test_dependent_std_dev_of_two_gamma_amounts_matches_scipy_quadrature() -> None:
     # Reference: Cov(X1, X2) = E[q1(Phi(Z1)) q2(Phi(Z2))] - E X1 E X2 for a bivariate normal
-    # (Z1, Z2) with correlation 0.6, by scipy.integrate.dblquad over the normal density with
-    # scipy.stats.gamma's quantiles (exact marginals; no lattice), and Var of each gamma.
+    # (Z1, Z2) with correlation 0.6, by Simpson's rule in both axes (scipy.integrate.simpson)
+    # over [-8, 8]^2 against scipy.stats.multivariate_normal's density, with scipy.stats.gamma's
+    # quantiles (exact marginals; no lattice), and Var of each gamma.
     rho = 0.6
     laws = [stats.gamma(2.0, scale=3.0), stats.gamma(0.7, scale=10.0)]
-    cov = integrate.dblquad(
-        lambda z2, z1: float(laws[0].isf(stats.norm.sf(z1)) * laws[1].isf(stats.norm.sf(z2))
-                             * stats.multivariate_normal.pdf([z1, z2], cov=[[1, rho],
-                                                                             [rho, 1]])),
-        -8.0, 8.0, -8.0, 8.0, epsabs=1e-9, epsrel=1e-9)[0] - laws[0].mean() * laws[1].mean()
+    z = np.linspace(-8.0, 8.0, 2001)
+    z1, z2 = np.meshgrid(z, z, indexing="ij")
+    density = stats.multivariate_normal(cov=[[1, rho], [rho, 1]]).pdf(np.dstack([z1, z2]))
+    product = np.outer(laws[0].isf(stats.norm.sf(z)), laws[1].isf(stats.norm.sf(z)))
+    cov = float(integrate.simpson(integrate.simpson(product * density, x=z, axis=1), x=z)
+                - laws[0].mean() * laws[1].mean())
     ref = math.sqrt(laws[0].var() + laws[1].var() + 2.0 * cov)
     lines = [Line(count=Fixed(n=1), severity=Gamma(shape=2.0, scale=3.0)),
              Line(count=Fixed(n=1), severity=Gamma(shape=0.7, scale=10.0))]

@@ -8,6 +8,7 @@ import math
 import time
 from typing import Any
 
+from api_calls import wait_for_run
 from fastapi.testclient import TestClient
 from scipy import stats
 
@@ -16,21 +17,10 @@ from service.resources import KINDS
 from service.settings import DEFAULT_EXAMPLES_DIR
 
 EXAMPLE = DEFAULT_EXAMPLES_DIR / "runs_month_end.json"
-TERMINAL = {"done", "failed", "cancelled"}
 
 
 def _endpoint(kind: str) -> str:
     return "/v1/" + kind.replace("_", "-")  # risk_measures -> /v1/risk-measures
-
-
-def _wait(client: TestClient, run_id: str, timeout: float = 30.0) -> dict[str, Any]:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        body = client.get(f"/v1/runs/{run_id}").json()
-        if body["status"] in TERMINAL and body["progress"]["running"] == 0:
-            return body
-        time.sleep(0.02)
-    raise AssertionError(f"run {run_id} did not finish: {body}")
 
 
 def _without_timing(body: dict[str, Any]) -> dict[str, Any]:
@@ -56,7 +46,7 @@ def test_example_batch_results_equal_the_synchronous_endpoints(client):
     assert accepted.status_code == 202, accepted.text
     assert set(accepted.json()) == {"run_id", "status"}
     run_id = accepted.json()["run_id"]
-    run = _wait(client, run_id)
+    run = wait_for_run(client, run_id)
     assert run["status"] == "done" and run["name"] == batch["name"]
     assert run["progress"]["done"] == run["progress"]["total"] == len(batch["items"])
     assert [r["id"] for r in run["results"]] == [item["id"] for item in batch["items"]]
@@ -78,7 +68,7 @@ def test_a_bad_item_fails_alone_with_the_endpoints_422_detail(make_client):
     too_many = _exceedance(2, thresholds=[10.0, 20.0, 30.0])  # refused by a server limit
     items = [("good", "exceedance", _exceedance(3)), ("bad-severity", "exceedance", bad_severity),
              ("not-an-object", "exceedance", [1, 2]), ("too-many", "exceedance", too_many)]
-    run = _wait(client, client.post("/v1/runs", json=_batch(items)).json()["run_id"])
+    run = wait_for_run(client, client.post("/v1/runs", json=_batch(items)).json()["run_id"])
     assert run["status"] == "failed"
     assert run["progress"] == {"done": 4, "total": 4, "failed": 3, "running": 0, "queued": 0,
                                "cancelled": 0}
@@ -151,7 +141,7 @@ def test_cancel_stops_the_remaining_items(make_client):
         time.sleep(0.01)
     cancelled = client.delete(f"/v1/runs/{run_id}")
     assert cancelled.status_code == 200 and cancelled.json()["status"] == "cancelled"
-    run = _wait(client, run_id)
+    run = wait_for_run(client, run_id)
     assert run["status"] == "cancelled"
     statuses = [r["status"] for r in run["results"]]
     assert len(statuses) == 8
@@ -177,10 +167,10 @@ def test_resubmission_with_the_same_idempotency_key_returns_the_existing_run(mak
     first = client.post("/v1/runs", json=batch, headers=key)
     assert first.status_code == 202
     run_id = first.json()["run_id"]
-    seed = _wait(client, run_id)["results"][0]["seed"]
+    seed = wait_for_run(client, run_id)["results"][0]["seed"]
     again = client.post("/v1/runs", json=batch, headers=key)
     assert again.status_code == 200 and again.json() == {"run_id": run_id, "status": "done"}
-    assert _wait(client, run_id)["results"][0]["seed"] == seed  # drawn once, kept
+    assert wait_for_run(client, run_id)["results"][0]["seed"] == seed  # drawn once, kept
     changed = client.post("/v1/runs", json={**batch, "name": "other"}, headers=key)
     assert changed.status_code == 409
     assert changed.json()["detail"] == [{
@@ -196,7 +186,7 @@ def test_a_batch_of_200_small_items_completes(make_client):
     client = make_client()
     items = [(f"item-{i:03d}", "exceedance", _exceedance(i)) for i in range(200)]
     started = time.perf_counter()
-    run = _wait(client, client.post("/v1/runs", json=_batch(items)).json()["run_id"], 60)
+    run = wait_for_run(client, client.post("/v1/runs", json=_batch(items)).json()["run_id"], 60)
     elapsed = time.perf_counter() - started
     assert run["status"] == "done" and run["progress"]["done"] == 200
     assert [r["id"] for r in run["results"]] == [i for i, _, _ in items]
@@ -219,7 +209,7 @@ def test_runs_are_listed_newest_first_by_page_cursor_and_status(make_client):
         name=f"run {i}")).json()["run_id"] for i in range(5)]
     client.delete(f"/v1/runs/{ids[3]}")
     for run_id in ids:
-        _wait(client, run_id)
+        wait_for_run(client, run_id)
     seen: list[str] = []
     cursor: str | None = None
     while True:
@@ -256,8 +246,9 @@ def test_unknown_run_is_404_and_the_runs_routes_are_documented(client):
 def test_a_run_repeated_from_its_stored_batch_gives_the_same_figures(client):
     batch = _batch([("a", "exceedance", {k: v for k, v in _exceedance(0).items()
                                          if k != "seed"})], name="audit")
-    first = _wait(client, client.post("/v1/runs", json=batch).json()["run_id"])
+    first = wait_for_run(client, client.post("/v1/runs", json=batch).json()["run_id"])
     stored = client.get(f"/v1/runs/{first['run_id']}/batch").json()
-    repeat = _wait(client, client.post("/v1/runs", json=copy.deepcopy(stored)).json()["run_id"])
+    repeat = wait_for_run(
+        client, client.post("/v1/runs", json=copy.deepcopy(stored)).json()["run_id"])
     assert _without_timing(repeat["results"][0]["result"]) == _without_timing(
         first["results"][0]["result"])

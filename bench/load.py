@@ -57,9 +57,12 @@ def _cheap(seed: int) -> dict[str, Any]:
             "precision": {"samples": 2000}, "seed": seed}
 
 
-def _heavy(seed: int) -> dict[str, Any]:
+HEAVY_SAMPLES = 200_000
+
+
+def _heavy(seed: int, samples: int = HEAVY_SAMPLES) -> dict[str, Any]:
     return {"portfolio": {"lines": [LOGNORMAL, GAMMA]}, "levels": [0.99, 0.995, 0.999],
-            "precision": {"samples": 200_000}, "seed": seed}
+            "precision": {"samples": samples}, "seed": seed}
 
 
 def _batch(seed: int) -> dict[str, Any]:
@@ -74,6 +77,9 @@ class Budget:
     max_requests: int
     concurrency: int
     workers: int
+    # Smoke runs shrink the heavy class and the server's split size with it (still split).
+    heavy_samples: int = HEAVY_SAMPLES
+    split_samples: int | None = None  # the server's setting; None: its default
 
 
 @dataclass
@@ -122,11 +128,14 @@ def _children(pid: int) -> list[int]:
     return found
 
 
-def _start_server(data_dir: Path, workers: int) -> tuple[subprocess.Popen[bytes], str]:
+def _start_server(data_dir: Path, workers: int, split_samples: int | None = None
+                  ) -> tuple[subprocess.Popen[bytes], str]:
     port = _free_port()
     env = {k: v for k, v in os.environ.items() if not k.startswith("TAILGAUGE_")}
     env.update({"TAILGAUGE_DATA_DIR": str(data_dir), "TAILGAUGE_EXECUTOR": "process",
                 "TAILGAUGE_WORKERS": str(workers), "PYTHONPATH": str(ROOT)})
+    if split_samples is not None:
+        env["TAILGAUGE_SPLIT_SAMPLES"] = str(split_samples)
     process = subprocess.Popen(
         [sys.executable, "-m", "uvicorn", "service.app:app", "--host", HOST, "--port",
          str(port), "--log-level", "warning"],
@@ -156,14 +165,15 @@ def figures(body: Any) -> Any:
 
 
 async def _one(client: httpx.AsyncClient, kind: str, seed: int,
-               answers: dict[tuple[str, int], Any] | None = None) -> str | None:
+               answers: dict[tuple[str, int], Any] | None = None,
+               heavy_samples: int = HEAVY_SAMPLES) -> str | None:
     """Send one request of the class; the error it met, or None."""
     if kind == "health":
         response = await client.get("/v1/health")
     elif kind == "cheap":
         response = await client.post("/v1/exceedance", json=_cheap(seed))
     elif kind == "heavy":
-        response = await client.post("/v1/risk-measures", json=_heavy(seed))
+        response = await client.post("/v1/risk-measures", json=_heavy(seed, heavy_samples))
     else:
         response = await client.post("/v1/runs", json=_batch(seed))
         if response.status_code == 202:
@@ -173,7 +183,8 @@ async def _one(client: httpx.AsyncClient, kind: str, seed: int,
     return None if response.is_success else str(response.status_code)
 
 
-async def _recheck(base: str, record: Record, most: int) -> dict[str, int]:
+async def _recheck(base: str, record: Record, most: int,
+                   heavy_samples: int = HEAVY_SAMPLES) -> dict[str, int]:
     """Send some of the load's cheap and heavy requests again, one at a time; count the
     answers that differ from those given under load."""
     checked = {"checked": 0, "different": 0}
@@ -182,7 +193,7 @@ async def _recheck(base: str, record: Record, most: int) -> dict[str, int]:
     async with httpx.AsyncClient(base_url=base, timeout=120) as client:
         for kind, seed in picks:
             alone: dict[tuple[str, int], Any] = {}
-            await _one(client, kind, seed, alone)
+            await _one(client, kind, seed, alone, heavy_samples)
             checked["checked"] += 1
             checked["different"] += alone.get((kind, seed)) != record.answers[(kind, seed)]
     return checked
@@ -214,7 +225,8 @@ async def _load(base: str, pid: int, budget: Budget) -> tuple[Record, float]:
                 kind = MIX[i % len(MIX)]
                 begun = time.perf_counter()
                 try:
-                    error = await _one(client, kind, seed=1000 + i, answers=record.answers)
+                    error = await _one(client, kind, seed=1000 + i, answers=record.answers,
+                                       heavy_samples=budget.heavy_samples)
                 except httpx.TransportError as exc:
                     error = type(exc).__name__
                 record.add(kind, time.perf_counter() - begun, error)

@@ -383,6 +383,10 @@ def _choose(portfolio: Portfolio, q: np.ndarray, extra: list[float], method: str
             seed: int, deadline: float | None = None) -> tuple[list[str], str]:
     """Candidate names, best first, and the reason in words."""
     if method != registry.AUTO:
+        if portfolio.dependence is not None:
+            from core.dependence.engine import estimator_for
+
+            estimator_for(method, portfolio)  # refused before any pilot when it does not serve
         return [method], f"{method} requested"
     points = [guess_var(portfolio, float(level)) for level in q] + [x for x in extra if x > 0]
     # The pilot compares estimators at the extreme points only: it costs a pilot per point.

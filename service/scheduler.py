@@ -15,7 +15,9 @@ next one by lane:
 
 Admission: a job's cost is estimated in work units (its sample budget times claims per sample)
 and seconds per unit learned from the tasks that ended; a job ahead never counts for more than
-the time it has left (the engine stops at its time limit and answers with what it drew). A job
+the time it has left (the engine stops at its time limit and answers with what it drew). The
+work ahead is shared by the slots the job's lane gets: all of them, or while the other lane
+has jobs, one for large work and the rest for small work. A job
 that could not start within its own wall limit behind the work ahead of it is refused with a
 503 and a Retry-After at once, instead of after waiting for the limit.
 Cancelled jobs (client gone, time limit) lose their queued tasks; running ones end on their own.
@@ -103,7 +105,7 @@ class Scheduler:
     def admit(self, lane: Lane, work: float, wall_limit_s: float) -> Job:
         """A new job, or Overloaded when it could not start within `wall_limit_s`."""
         with self._lock:
-            wait = self._ahead_s(lane) / max(1, self.backend.slots)
+            wait = self._ahead_s(lane) / self._lane_slots(lane)
             if wait >= wall_limit_s:
                 retry = min(MAX_RETRY_AFTER_S, max(1, math.ceil(wait - wall_limit_s)))
                 raise Overloaded(wait, retry)
@@ -144,16 +146,27 @@ class Scheduler:
 
     def _ahead_s(self, lane: Lane) -> float:
         """Slot-seconds of work ahead of a new job of `lane`: small jobs wait only for small
-        work (they go first), large ones for everything; a job counts for no more than the
-        slot time it has left before its wall limit."""
-        now, slots = time.monotonic(), max(1, self.backend.slots)
+        work (they go first), large ones for everything, or only for large work while small
+        work has slots of its own; a job counts for no more than the slot time it has left
+        before its wall limit."""
+        now, slots = time.monotonic(), self._lane_slots(lane)
+        split = slots < max(1, self.backend.slots)
         total = 0.0
         for j in self._jobs:
-            if lane == "large" or j.lane == "small":
+            if j.lane == lane or (lane == "large" and not split):
                 left = max(0.0, j.created + j.wall_limit_s - now)
                 total += min(self._seconds(j.lane, j.remaining()),
                              left * (slots if j.lane == "large" else 1))
         return total
+
+    def _lane_slots(self, lane: Lane) -> int:
+        """The slots `lane` gets while the other lane has work (as _next hands them out): with
+        two slots or more large work keeps one and small work takes the others."""
+        slots = max(1, self.backend.slots)
+        other: Lane = "small" if lane == "large" else "large"
+        if slots < 2 or not any(j.lane == other for j in self._jobs):
+            return slots
+        return 1 if lane == "large" else slots - 1
 
     def _learn(self, lane: Lane, work: float, seconds: float) -> None:
         if work <= 0 or not math.isfinite(seconds):

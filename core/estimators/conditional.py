@@ -179,6 +179,7 @@ class Conditional(Estimator):
     serves = frozenset({ModelKind.CLAIMS, ModelKind.DEPENDENT})
     # Lognormal amounts: Asmussen, Blanchet, Juneja and Rojas-Nandayapa (2011).
     amount_sampler = AmountSampler.ABJR
+    copula_lines = False
 
     def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:
         return 1 if amounts is not None else None

@@ -183,6 +183,7 @@ class ConditionalIS(Estimator):
     serves = frozenset({ModelKind.CLAIMS, ModelKind.DEPENDENT})
     # Lognormal amounts: directional conditional MC with shifted normals.
     amount_sampler = AmountSampler.DIRECTIONAL
+    copula_lines = False
 
     def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:
         return 0 if amounts is not None else None

@@ -76,6 +76,10 @@ class Estimator:
     proposal: ClassVar[bool] = True
     # Dependent portfolios: the sampler of correlated lognormal amounts (None: the copula's).
     amount_sampler: ClassVar[AmountSampler | None] = None
+    # Dependent portfolios other than lognormal amounts under a gaussian copula (compound
+    # lines, a student_t copula): whether it samples them through the copula's normals.
+    # False: only its amount_sampler serves a dependent portfolio, and it refuses the rest.
+    copula_lines: ClassVar[bool] = True
 
     @property
     def stream(self) -> str:

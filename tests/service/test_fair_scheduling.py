@@ -94,6 +94,26 @@ def test_a_request_that_cannot_start_in_time_is_refused_with_a_retry_time(one_sl
     one_slot.admit("small", 1_000.0, 10.0)
 
 
+def test_while_small_work_has_a_slot_large_work_ahead_is_shared_by_one():
+    # Two slots and small jobs about: large work keeps one slot and small work the other
+    # (Scheduler._next), so 20 s of large work ahead delays a new large job by 20 s, not 10 s,
+    # and the small work ahead (on its own slot) delays it by nothing.
+    backend = LocalBackend("thread", 2)
+    scheduler = Scheduler(backend)
+    scheduler.rate["large"] = scheduler.rate["small"] = 1e-3
+    scheduler.admit("large", 20_000.0, 60.0)
+    scheduler.admit("large", 1.0, 11.0)  # alone with large work: 20 s over 2 slots, 10 s
+    scheduler.admit("small", 5_000.0, 60.0)
+    with pytest.raises(Overloaded) as refused:
+        scheduler.admit("large", 1.0, 15.0)
+    assert refused.value.wait_s == pytest.approx(20.0, abs=0.05)
+    scheduler.admit("large", 1.0, 25.0)
+    # Small work ahead shares the one slot left to it: 5 s (plus the call's fixed cost).
+    with pytest.raises(Overloaded) as small_refused:
+        scheduler.admit("small", 1.0, 4.0)
+    assert small_refused.value.wait_s == pytest.approx(5.02, abs=0.01)
+
+
 def test_work_ahead_counts_for_no_more_than_its_own_time_left(one_slot):
     # The engine stops at a job's time limit: 1e9 units (1e6 s) ahead that must end within
     # 10 s delay a new job by 10 s at most.

@@ -46,14 +46,13 @@ def _run(
     for k, gid in enumerate(todo):
         group, left = groups[gid], len(todo) - k
         # Each method has its own streams so a fallback never reuses the first one's draws;
-        # auto's pilot drew the first blocks of this same stream (select.pilot).
+        # auto's pilots drew on streams of their own (select.pilot).
         stream = Stream(Purpose.SAMPLES, registry.get(name).stream, (gid,))
-        begun = None if trial.begun is None else trial.begun[gid]
         # Under a time limit each sample set gets an equal share of what is left, so the
         # first threshold cannot use up the time of the others.
         now = time.monotonic()
         share = None if deadline is None else now + max(deadline - now, 0.0) / left
-        run: GroupRun = run_group(group, block, precision, seed, stream, share, begun=begun)
+        run: GroupRun = run_group(group, block, precision, seed, stream, share)
         stops.append(run.stopped_by)
         diags = run.stats.diagnose()
         for col, i in enumerate(group.indices):

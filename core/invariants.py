@@ -8,10 +8,10 @@ probability) and is marked unreliable, and a warning says what was violated. The
 the quantities (common practice), not tuning: a healthy estimator never trips them.
 
 A Monte Carlo figure with a zero-width interval is not exact: with every sampled contribution
-equal the spread is simply unobserved. A probability of 1 from n such samples gets the one-sided
-bound [0.05^(1/n), 1] (the rule of three mirrored; valid for contributions bounded by 1); any
-other zero-width figure is flagged. Only figures the engine knows in closed form carry
-`exact = True` in their diagnostics.
+equal the spread is simply unobserved. Its interval is widened by the no-hit rule (a probability
+of 1 from n samples gets [0.05^(1/n), 1], the rule of three mirrored; valid for contributions
+bounded by 1), and any figure other than 1 is also flagged. Only figures the engine knows in
+closed form carry `exact = True` in their diagnostics.
 """
 
 from __future__ import annotations
@@ -22,6 +22,7 @@ import math
 from collections.abc import Sequence
 from typing import Any, TypeVar
 
+from core import intervals
 from core.results import Diagnostics, Estimate
 
 E = TypeVar("E", bound=Estimate)
@@ -77,24 +78,43 @@ def check_probability(e: E) -> tuple[E, list[str]]:
     label = _label(e)
     problems = probability_problems(e.value, e.ci_low, e.ci_high, e.std_error)
     if problems:
-        value = min(max(e.value, 0.0), 1.0) if math.isfinite(e.value) else 0.0
-        low = min(max(e.ci_low, 0.0), value) if math.isfinite(e.ci_low) else 0.0
-        high = max(min(e.ci_high, 1.0), value) if math.isfinite(e.ci_high) else 1.0
         why = "invariant violated: " + "; ".join(problems)
-        out = dataclasses.replace(e, value=value, ci_low=low, ci_high=high,
+        out = dataclasses.replace(_clipped_probability(e),
                                   diagnostics=flagged(e.diagnostics, why))
         return out, [f"{label}: {why}; the figure is not to be trusted"]
     spread = e.ci_high - e.ci_low
     if e.diagnostics.exact or e.samples == 0 or spread > _NO_SPREAD * abs(e.value):
         return e, []
     # Monte Carlo with a zero-width interval: the spread was not observed.
-    if e.value >= 1.0:
-        low = math.exp(math.log(0.05) / e.samples)
-        note = (f"{label}: every one of the {e.samples} samples hit; the interval is the "
-                f"one-sided 95% bound [{low:.6g}, 1]")
-        return dataclasses.replace(e, ci_low=low, std_error=None, relative_error=None), [note]
-    why = "every sample gave the same contribution: the error is not measurable"
-    return dataclasses.replace(e, diagnostics=flagged(e.diagnostics, why)), [f"{label}: {why}"]
+    return _unobserved_spread(e, label)
+
+
+def _unobserved_spread(e: E, label: str) -> tuple[E, list[str]]:
+    """Every one of n contributions (each in [0, 1]) equalled c: by the no-hit rule
+    (core.intervals) the share that would differ is at most b = 1 - 0.05^(1/n) at 95%, so the
+    mean lies in [c - b c, c + b (1 - c)]. For c = 1 (every sample hit) that is the one-sided
+    bound [1 - b, 1], the no-hit bound mirrored; any other c is also flagged, since its spread
+    was not measured at all."""
+    c, n = e.value, e.samples
+    low = c - intervals.no_hit_upper(n, largest=c)
+    high = min(1.0, c + intervals.no_hit_upper(n, largest=1.0 - c))
+    widened = dataclasses.replace(e, ci_low=low, ci_high=high, std_error=None,
+                                  relative_error=None)
+    if c >= 1.0:
+        return widened, [f"{label}: every one of the {n} samples hit; the interval is the "
+                         f"one-sided 95% bound [{low:.6g}, 1]"]
+    why = (f"every sample gave the same contribution: the error is not measurable; the "
+           f"interval [{low:.6g}, {high:.6g}] bounds the share of samples that would differ")
+    return (dataclasses.replace(widened, diagnostics=flagged(e.diagnostics, why)),
+            [f"{label}: {why}"])
+
+
+def _clipped_probability(p: Any) -> Any:
+    """A probability interval record with value and ends clipped into [0, 1], ordered."""
+    value = min(max(p.value, 0.0), 1.0) if math.isfinite(p.value) else 0.0
+    low = min(max(p.ci_low, 0.0), value) if math.isfinite(p.ci_low) else 0.0
+    high = max(min(p.ci_high, 1.0), value) if math.isfinite(p.ci_high) else 1.0
+    return dataclasses.replace(p, value=value, ci_low=low, ci_high=high)
 
 
 def check_monotone(estimates: Sequence[E], at: Sequence[float]) -> tuple[list[E], list[str]]:
@@ -186,7 +206,10 @@ def check_tail(measures: Sequence[M], layers: Sequence[L],
             value = min(max(el.value, 0.0), cap) if math.isfinite(el.value) else 0.0
             fixed = dataclasses.replace(el, value=value, ci_low=min(max(el.ci_low, 0.0), value),
                                         ci_high=max(min(el.ci_high, cap), value))
-            ly = dataclasses.replace(ly, expected_loss=fixed,
+            probs = {name: _clipped_probability(getattr(ly, name))
+                     for name in ("probability_attach", "probability_exhaust")
+                     if getattr(ly, name) is not None}
+            ly = dataclasses.replace(ly, expected_loss=fixed, **probs,
                                      diagnostics=flagged(ly.diagnostics, why))
             notes.append(f"layer {ly.attachment:g} xs: {why}")
         out_l.append(ly)

@@ -15,6 +15,7 @@ import numpy as np
 from scipy import special, stats
 
 from core.credit.lgd import BetaLGD
+from core.credit.lines import LineSet
 from core.credit.model import CreditModel
 
 _LEGENDRE = np.polynomial.legendre.leggauss(48)
@@ -66,8 +67,37 @@ def loss_moments(model: CreditModel) -> tuple[float, float]:
     lines = model.line_set
     if lines is None:
         return mean, sd
-    # Claim lines on the factors: independent of the credit loss (and of each other) only
-    # when every loading is zero; the covariances otherwise are not computed (unknown, NaN).
-    var = sd * sd + lines.variance
-    return mean + lines.mean, math.sqrt(var) if lines.independent and math.isfinite(
-        var) else math.nan
+    if lines.independent:  # every loading zero: the variances add
+        var = sd * sd + lines.variance
+    else:
+        var = _with_lines(model, lines, sd * sd, n * e * mu)
+    return mean + lines.mean, math.sqrt(var) if math.isfinite(var) and var >= 0 else math.nan
+
+
+def _with_lines(model: CreditModel, lines: LineSet, credit_var: float,
+                per_default: np.ndarray) -> float:
+    """Var(credit loss + claim lines) for lines on the factors: every latent variable (an
+    obligor's, a line's) is one coordinate of a gaussian (or t) vector with correlations
+    b' b of their loadings on the independent factors, so Var(sum of lines) is the copula
+    quadrature of core.dependence.moments (lines coupled by the correlation b_i' b_j), and
+    Cov(S_i, credit loss) = sum_g n_g e_g E[LGD_g] Cov(S_i, 1{default of an obligor of g})
+    (the LGDs are independent of the latent variables) by the same quadrature. NaN when the
+    quadrature cannot vouch for a line's own moments (core.dependence.moments)."""
+    from core.dependence.copula import Copula
+    from core.dependence.marginals import with_reach
+    from core.dependence.moments import dependent_std_dev, event_covariances
+    from core.portfolio import Portfolio
+
+    bl = lines.loadings_x
+    corr = np.clip(bl @ bl.T, -1.0, 1.0)
+    np.fill_diagonal(corr, 1.0)
+    book = Portfolio(lines=[fl.line for fl in lines.lines],
+                     dependence=Copula(kind=model.copula,  # type: ignore[arg-type]
+                                       correlation=corr, df=model.df))
+    quantiles = with_reach(lines.quantiles, 1e-15)
+    sd_lines = dependent_std_dev(book, quantiles)
+    if not math.isfinite(sd_lines):
+        return math.nan
+    cov = event_covariances(book, quantiles, bl @ model.loadings_x.T, model.thresholds,
+                            model.pds)
+    return credit_var + sd_lines**2 + 2.0 * float((cov @ per_default).sum())

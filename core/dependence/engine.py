@@ -27,6 +27,7 @@ from core.dependence import coupled, directional, radial
 from core.dependence.amounts import Amounts, lognormal_amounts
 from core.dependence.marginals import LineQuantile, line_quantiles
 from core.dependence.shift import ShiftMixture
+from core.errors import MethodError
 from core.estimators import registry
 from core.estimators.estimator import AmountSampler, Estimator, ModelKind
 from core.portfolio import Portfolio
@@ -45,6 +46,21 @@ def estimator(name: str) -> Estimator:
     """The registry's estimator `name`, refused at `method` unless it serves dependent
     portfolios."""
     return registry.get_for(DEPENDENT, name, "a dependent portfolio (portfolio.dependence)")
+
+
+def estimator_for(name: str, portfolio: Portfolio) -> Estimator:
+    """`estimator(name)`, also refused at `method` when this dependent portfolio is not one its
+    samplers serve (a method whose only dependent sampler is for correlated lognormal amounts
+    would otherwise have nothing of its own to run on copula-coupled lines)."""
+    est = estimator(name)
+    if est.copula_lines or lognormal_amounts(portfolio) is not None:
+        return est
+    usable = [n for n in DEPENDENT_METHODS if estimator(n).copula_lines]
+    raise MethodError("method", f"{name} applies to a dependent portfolio only when it is "
+                                "correlated lognormal amounts (every line one lognormal "
+                                "amount, count fixed at 1, no layer, gaussian copula); for "
+                                "these copula-coupled lines use one of "
+                                f"{', '.join((registry.AUTO, *usable))}")
 
 
 def candidates(portfolio: Portfolio, *, measures: bool) -> list[str]:
@@ -66,7 +82,7 @@ def values(name: str, portfolio: Portfolio, a: FloatArray, anchors: Sequence[flo
            top: float | None = None) -> Values:
     """top: set when only exceedance columns matter (see marginals.line_quantiles)."""
     """The block function of method `name` in the layout above."""
-    method = estimator(name)
+    method = estimator_for(name, portfolio)
     amounts = lognormal_amounts(portfolio)
     g = a.size
     anchors = [float(v) for v in anchors if v > 0] or [float(np.max(a))]

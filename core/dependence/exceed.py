@@ -170,7 +170,8 @@ def choose(portfolio: Portfolio, x: FloatArray, seed: int, *, measures: bool = F
 def dependent_exceedance(portfolio: Portfolio, x: FloatArray, method: str,
                          precision: Precision, seed: int, start: float) -> ExceedanceResult:
     if method != registry.AUTO:
-        engine.estimator(method)  # refused at `method` unless it serves dependent portfolios
+        # refused at `method` unless it serves this dependent portfolio
+        engine.estimator_for(method, portfolio)
     deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
     if method == registry.AUTO:
         names, reason = choose(portfolio, x, seed)

@@ -23,7 +23,7 @@ from functools import cached_property
 
 import numpy as np
 import numpy.typing as npt
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from core.counts import Fixed
 from core.portfolio import Line, Portfolio
@@ -135,6 +135,17 @@ _PAIRS: OrderedDict[tuple[Line, float, int], tuple[FloatArray, FloatArray, float
     OrderedDict())
 _PAIRS_KEPT = 64  # lattice pairs kept (about 64 * 2 * 8k floats = 8 MB at most)
 _PAIRS_LOCK = threading.Lock()
+_THREADS: list[ThreadpoolController] = []  # one controller: each scans the loaded libraries
+
+
+def _controller() -> ThreadpoolController:
+    """Built once, after the recursion's imports have loaded the BLAS it calls (numpy's and
+    scipy.linalg's), which are the libraries it must see."""
+    if not _THREADS:
+        import core.recursion  # noqa: F401  (loads scipy.linalg before the scan)
+
+        _THREADS.append(ThreadpoolController())
+    return _THREADS[0]
 
 
 def _pair(line: Line, top: float, cells: int) -> tuple[FloatArray, FloatArray, float]:
@@ -158,7 +169,7 @@ def _pair(line: Line, top: float, cells: int) -> tuple[FloatArray, FloatArray, f
         # One BLAS thread: the recursion's blocked products are too small to share among
         # threads, and on a busy machine the extra threads spin (measured: 2.2 s of CPU for
         # one request's lattices with two threads, 0.5 s with one; same values).
-        with threadpool_limits(limits=1, user_api="blas"):
+        with _controller().limit(limits=1, user_api="blas"):
             low = aggregate(single, grid, "down", exact_tail=False).survival()
             up = aggregate(single, grid, "up", exact_tail=False).survival()
         low.flags.writeable = False
@@ -181,6 +192,11 @@ def _build(portfolio: Portfolio, smallest_tail: float, top_at: float | None
             top = min(top, top_at)
         lows, ups, spans = [], [], []
         tops, main = _tops(top, line.mean)
+        if top_at is not None:
+            # Exceedance only: the fill lattices tighten the body's quantiles for VaR
+            # intervals; at an exceedance threshold the main lattices' bounds hold as well,
+            # and their width is carried into the interval (slightly wider, never dropped).
+            tops = tops[:main]
         for k, level_top in enumerate(tops):
             low, up, span = _pair(line, level_top, CELLS if k < main else FILL_CELLS)
             lows.append(low)

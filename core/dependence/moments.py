@@ -97,3 +97,32 @@ def dependent_std_dev(portfolio: Portfolio, quantiles: tuple[LineQuantile, ...])
             cross = float((own[i] * w) @ (q_j @ wv))
             total += 2.0 * (cross - lines[i].mean * lines[j].mean)
     return math.sqrt(total) if total >= 0 else math.nan
+
+
+def event_covariances(portfolio: Portfolio, quantiles: tuple[LineQuantile, ...],
+                      r: FloatArray, c: FloatArray, p: FloatArray) -> FloatArray:
+    """(m, G) Cov(S_i, 1{Y_g < c_g}) for events on latent variables Y_g (an obligor's default,
+    core.credit) of probability p_g whose correlation with line i's latent is r[i, g]; a line
+    loses most when its latent is low, so with T_i = -Y_i as above, 1{Y_g < c_g} is the event
+    T_g > -c_g, and given T_i = t it has probability Phi((c_g + r t) / sqrt(1 - r^2)) (the
+    conditional normal), or for student_t the t law with df + 1 at (c_g + r t) over the
+    conditional scale. The quadrature is the outer rule of `dependent_std_dev`, and the
+    covariance is sum_t w q(t) (P(event | t) - p), which is 0 when r = 0 as it must be.
+    `quantiles` must reach the lines' far tails (`with_reach`), as `dependent_std_dev`
+    checks on the lines' own moments."""
+    cop = portfolio.dependence
+    assert cop is not None
+    df = cop.df if cop.kind == "student_t" else None
+    t, w = _nonzero(*_rule(_OUTER, df))
+    out = np.zeros((len(quantiles), c.size))
+    for i, q in enumerate(quantiles):
+        mid = _mid(q, _ubar(t, df)) * w
+        rho = np.clip(r[i], -1.0, 1.0)[:, None]
+        spread = np.sqrt(np.maximum(1.0 - rho * rho, 1e-300))
+        z = c[:, None] + rho * t[None, :]
+        if df is None:
+            cond = special.ndtr(z / spread)
+        else:
+            cond = special.stdtr(df + 1.0, z / (spread * np.sqrt((df + t * t) / (df + 1.0))))
+        out[i] = (np.asarray(cond, dtype=float) - p[:, None]) @ mid
+    return out

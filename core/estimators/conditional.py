@@ -21,9 +21,11 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from core.big_claim import BigClaim
 from core.errors import MethodError
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.estimators.estimator import AmountSampler, Estimator, ModelKind, RuinRegime
+from core.estimators.mixture import TiltFamily
 from core.functionals import excess_mean
 from core.portfolio import Portfolio
 from core.sampling import Draw, draw_block
@@ -117,17 +119,43 @@ class Conditioning:
                 )
 
 
+# Share of exceedance samples with one other claim of the lead line drawn big (core.big_claim).
+BIG_SHARE = 0.1
+
+
+def big_claim_family(cond: Conditioning, x: float) -> TiltFamily | None:
+    """The model plus the big-claim component at threshold x (no tilt), or None when the
+    model's own draws already see the whole region (core.big_claim)."""
+    lead = cond.heavy[int(np.argmax(cond.pick))]
+    line = cond.portfolio.lines[lead]
+    big = BigClaim.for_threshold(lead, line.paid_severity, line.paid_count.mean, x)
+    if big is None:
+        return None
+    return TiltFamily(cond.portfolio, {}, lead=lead, big=big, big_share=BIG_SHARE)
+
+
 def plan_plain(portfolio: Portfolio, thresholds: np.ndarray) -> list[Group]:
-    """Asmussen-Kroese without importance sampling: one sample set for every threshold."""
+    """Asmussen-Kroese without a tilt: one sample set for every threshold. Its contribution
+    Fbar(max(M, x - S_-)) peaks where another claim is large, a region of order n Fbar(t) of
+    the mean that 1e4 model draws rarely reach: for 30 Weibull(0.3) claims at 1e-8 the
+    intervals then missed low (z mean -0.17 over 500 seeds, 25 misses below against 3 above).
+    So 10% of the samples come from the big-claim component set at the largest threshold, as
+    conditional_is does, weighted by the mixture's exact likelihood ratio."""
     cond = Conditioning(portfolio)
     x = np.asarray(thresholds, dtype=float)
+    family = big_claim_family(cond, float(x.max()))
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
         j = cond.choose(m, rng)
-        return cond.values(draw_block(portfolio, m, rng, size_biased=j), j, x)
+        if family is None:
+            return cond.values(draw_block(portfolio, m, rng, size_biased=j), j, x)
+        return cond.values(family.draw([0.0], m, rng, j), j, x)
 
     work = work_per_sample(portfolio.expected_claims, x.size)
-    return [Group(tuple(range(x.size)), values, work, "Asmussen-Kroese, no importance sampling")]
+    what = "Asmussen-Kroese, no importance sampling"
+    if family is not None and family.big is not None:
+        what = f"Asmussen-Kroese with a big-claim component above {family.big.t:.4g}"
+    return [Group(tuple(range(x.size)), values, work, what)]
 
 
 def sampler(portfolio: Portfolio, a: np.ndarray) -> BlockFn:
@@ -151,6 +179,7 @@ class Conditional(Estimator):
     serves = frozenset({ModelKind.CLAIMS, ModelKind.DEPENDENT})
     # Lognormal amounts: Asmussen, Blanchet, Juneja and Rojas-Nandayapa (2011).
     amount_sampler = AmountSampler.ABJR
+    copula_lines = False
 
     def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:
         return 1 if amounts is not None else None
@@ -166,7 +195,7 @@ class Conditional(Estimator):
         return plan_plain(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
-                      seed: int) -> BlockFn:
+                      seed: int, *, deadline: float | None = None) -> BlockFn:
         return sampler(portfolio, points)
 
 

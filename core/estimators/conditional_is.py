@@ -155,13 +155,16 @@ def _is_group(cond: Conditioning, family: TiltFamily, thetas: list[float], membe
                  f"Asmussen-Kroese with capped exponential tilts theta = {shown} ({caps})")
 
 
-def sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequence[float], seed: int) -> BlockFn:
+def sampler(portfolio: Portfolio, a: np.ndarray, anchors: Sequence[float], seed: int,
+            deadline: float | None = None) -> BlockFn:
     """Risk-measure contributions from a defensive mixture of capped tilts, one component
-    adapted at each anchor point."""
+    adapted at each anchor point; past the deadline no adaptation round runs (any theta keeps
+    the estimate unbiased, adapt_many)."""
     cond = Conditioning(portfolio)
     cond.check_finite_means()
     family = capped_family(cond, float(max(anchors)))
-    thetas = [adapt(portfolio, float(x), seed, Stream(Purpose.MEASURE_ADAPT, NAME, (i,)))[1]
+    thetas = [adapt(portfolio, float(x), seed, Stream(Purpose.MEASURE_ADAPT, NAME, (i,)),
+                    deadline)[1]
               for i, x in enumerate(spread_out(anchors))]
 
     def values(m: int, rng: np.random.Generator) -> np.ndarray:
@@ -180,6 +183,7 @@ class ConditionalIS(Estimator):
     serves = frozenset({ModelKind.CLAIMS, ModelKind.DEPENDENT})
     # Lognormal amounts: directional conditional MC with shifted normals.
     amount_sampler = AmountSampler.DIRECTIONAL
+    copula_lines = False
 
     def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:
         return 0 if amounts is not None else None
@@ -198,8 +202,8 @@ class ConditionalIS(Estimator):
         return plan_is(portfolio, thresholds, seed, deadline)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
-                      seed: int) -> BlockFn:
-        return sampler(portfolio, points, anchors, seed)
+                      seed: int, *, deadline: float | None = None) -> BlockFn:
+        return sampler(portfolio, points, anchors, seed, deadline)
 
 
 ESTIMATOR = ConditionalIS()

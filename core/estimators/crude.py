@@ -45,7 +45,7 @@ class Crude(Estimator):
         return plan(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
-                      seed: int) -> BlockFn:
+                      seed: int, *, deadline: float | None = None) -> BlockFn:
         return lambda m, rng: plain_values(draw_block(portfolio, m, rng), points)
 
 

@@ -76,6 +76,10 @@ class Estimator:
     proposal: ClassVar[bool] = True
     # Dependent portfolios: the sampler of correlated lognormal amounts (None: the copula's).
     amount_sampler: ClassVar[AmountSampler | None] = None
+    # Dependent portfolios other than lognormal amounts under a gaussian copula (compound
+    # lines, a student_t copula): whether it samples them through the copula's normals.
+    # False: only its amount_sampler serves a dependent portfolio, and it refuses the rest.
+    copula_lines: ClassVar[bool] = True
 
     @property
     def stream(self) -> str:
@@ -117,10 +121,11 @@ class Estimator:
         raise MethodError("method", f"{self.name} cannot estimate exceedance probabilities")
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
-                      seed: int) -> BlockFn:
+                      seed: int, *, deadline: float | None = None) -> BlockFn:
         """Per-sample contributions at `points` for a block: an (m, 2 G) array, the first G
         columns unbiased for P(S > a_g), the last G for E[(S - a_g)+]. `anchors` are where the
-        interest lies (VaR guesses, layer points), for proposals that adapt to them."""
+        interest lies (VaR guesses, layer points), for proposals that adapt to them; past
+        `deadline` (time.monotonic) a proposal stops adapting."""
         self.check(portfolio)
         raise MethodError("method", f"{self.name} cannot estimate risk measures")
 

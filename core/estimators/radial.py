@@ -14,6 +14,7 @@ class Radial(DependentOnly):
     listing = 70
     one_sample_set = True
     amount_sampler = AmountSampler.RADIAL
+    copula_lines = False
     what = "dependent portfolios of correlated lognormal amounts"
 
     def dependent_rank(self, amounts: int | None, *, measures: bool) -> int | None:

@@ -204,7 +204,7 @@ class Tilted(Estimator):
         return plan(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
-                      seed: int) -> BlockFn:
+                      seed: int, *, deadline: float | None = None) -> BlockFn:
         return sampler(portfolio, points, anchors)
 
 

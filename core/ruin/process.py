@@ -71,7 +71,9 @@ class SurplusProcess:
     @cached_property
     def net_severity(self) -> Severity:
         """The claim the insurer pays: min(X, retention) when a retention is given."""
-        if self.retention is None:
+        if self.retention is None or float(self.severity.sf(self.retention)) == 0.0:
+            # No claim reaches the retention in double precision: min(X, r) is X itself. The
+            # capped law would tilt a top cell reaching r (e^{a r} overflowed at r = 1e18).
             return self.severity
         return Capped(base=self.severity, cap=self.retention)
 

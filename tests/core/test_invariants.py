@@ -120,3 +120,47 @@ def test_dependent_exceedance_passes_the_invariants(monkeypatch):
     assert e.value == 1.0 and not e.diagnostics.reliable
     assert "invariant violated" in e.diagnostics.reason
     assert math.isfinite(res.std_dev)
+
+
+def test_zero_spread_below_one_is_widened_by_the_no_hit_rule_and_flagged():
+    out, notes = check_probability(_estimate(0.25, 0.25, 0.25, 0.0))
+    # every one of n contributions in [0, 1] equalled 0.25: the share that would differ is at
+    # most 1 - 0.05^(1/n) (Clopper-Pearson for zero hits, common practice)
+    b = 1.0 - 0.05 ** (1 / 10_000)
+    assert out.ci_low == pytest.approx(0.25 * (1 - b)) and out.ci_high == pytest.approx(
+        0.25 + 0.75 * b)
+    assert out.std_error is None and not out.diagnostics.reliable and notes
+
+
+def test_retention_of_1e18_gives_no_zero_width_interval():
+    # Pareto(2, scale 1) past 1e18: a claim pays with probability 1e-36 (closed form
+    # (1/1e18)^2), so P(S > 0) = 1 - exp(-5e-36) = 5e-36 for a Poisson(5) count.
+    from core import Pareto
+
+    port = Portfolio(lines=[Line(count=Poisson(mean=5.0), severity=Pareto(alpha=2.0, scale=1.0),
+                                 retention=1e18)])
+    res = exceedance(port, [0.0], precision=Precision(samples=2_000), seed=1)
+    e = res.estimates[0]
+    truth = -math.expm1(-5.0 * 1e-36)
+    assert e.ci_low < e.ci_high and e.ci_low <= truth <= e.ci_high
+    assert not e.diagnostics.exact and (e.std_error is None or e.std_error > 0)
+    if e.std_error is None:
+        assert not e.diagnostics.reliable
+
+
+def test_layer_attachment_probability_above_one_is_clipped_and_flagged():
+    # Found by the property tests: a layer's P(S > attachment) of 1.023 was flagged but sent
+    # as is; a probability is in [0, 1] (a fact of the quantity), so it is clipped as well.
+    from core.invariants import check_tail
+    from core.results import Interval, LayerEstimate
+
+    attach = Interval(value=1.0234, ci_low=0.9007, ci_high=1.0, std_error=0.0626)
+    layer = LayerEstimate(attachment=0.0, limit=1.0,
+                          expected_loss=Interval(value=0.5, ci_low=0.4, ci_high=0.6,
+                                                 std_error=0.05),
+                          probability_attach=attach, probability_exhaust=None,
+                          diagnostics=_diag())
+    _, (out,), notes = check_tail([], [layer])
+    p = out.probability_attach
+    assert 0.0 <= p.ci_low <= p.value <= p.ci_high <= 1.0
+    assert not out.diagnostics.reliable and notes

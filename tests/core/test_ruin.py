@@ -342,3 +342,15 @@ def test_time_limit_stops_the_run_and_says_so():
     assert res.stopped_by == "time_limit"
     assert res.estimates[0].samples < 10_000_000
     assert any("time limit" in w for w in res.warnings)
+
+
+def test_a_retention_no_claim_reaches_leaves_the_process_unchanged():
+    # P(X > 1e18) = e^-1e18 = 0 in double precision, so min(X, 1e18) is X (a fact of the
+    # model): the answer is the uncapped one, where the capped law's stepwise tilt overflowed
+    # (OverflowError, a 500 over HTTP).
+    capped = SurplusProcess(claim_rate=1.0, severity=Exponential(mean=1.0), loading=0.1,
+                            retention=1e18)
+    assert capped.net_severity is capped.severity
+    got = ruin(capped, [1.0], horizon=10.0, precision=Precision(samples=2_000), seed=4)
+    want = ruin(EXP, [1.0], horizon=10.0, precision=Precision(samples=2_000), seed=4)
+    assert got.estimates[0].value == want.estimates[0].value

@@ -123,3 +123,37 @@ def mixed_one_factor_tail(n: int, pd: float, rho: float, lgd: float, lam: float,
         return float((stats.binom.pmf(k, n, p) * cond).sum() * stats.norm.pdf(z))
 
     return float(integrate.quad(f, -9, 9, limit=400, epsabs=0, epsrel=1e-9)[0])
+
+
+def mixed_one_factor_moments(n: int, pd: float, rho: float, lgd: float, lam: float,
+                             shape: float, scale: float, b: float) -> tuple[float, float]:
+    """(mean, sd) of L + S for the book of mixed_one_factor_tail, by conditioning on the
+    factor Z: given Z the defaults are binomial(n, p(Z)) and independent of the line, whose
+    conditional tail is P(S > y | Z) = Phi(-(Phi^{-1}(F(y)) + b Z) / sqrt(1 - b^2)) with F the
+    exact compound law (poisson_gamma_sf); E[S^k | Z] = int k y^(k-1) P(S > y | Z) dy (Simpson
+    on a fine grid), then E[(L + S)^2] = E_Z[Var(L|Z) + (E[L|Z] + E[S|Z])^2 - E[S|Z]^2 +
+    E[S^2|Z]] by scipy.integrate.quad over Z."""
+    from scipy import integrate as _int
+
+    y = np.linspace(0.0, 1500.0, 15001)
+    level = stats.norm.ppf(np.clip(1.0 - poisson_gamma_sf(lam, shape, scale, y), 0.0, 1.0))
+    c = stats.norm.ppf(pd)
+    s = math.sqrt(1.0 - b * b)
+
+    def parts(z: float) -> tuple[float, float, float, float]:
+        p = float(stats.norm.cdf((c - math.sqrt(rho) * z) / math.sqrt(1.0 - rho)))
+        tail = stats.norm.sf((level + b * z) / s)
+        s1 = float(_int.simpson(tail, x=y))
+        s2 = float(_int.simpson(2.0 * y * tail, x=y))
+        return n * lgd * p, n * lgd * lgd * p * (1.0 - p), s1, s2
+
+    def moment(k: int) -> float:
+        def f(z: float) -> float:
+            el, vl, s1, s2 = parts(z)
+            val = el + s1 if k == 1 else vl + (el + s1) ** 2 - s1 * s1 + s2
+            return float(val * stats.norm.pdf(z))
+
+        return float(_int.quad(f, -9, 9, limit=200, epsabs=0, epsrel=1e-10)[0])
+
+    m1 = moment(1)
+    return m1, math.sqrt(moment(2) - m1 * m1)

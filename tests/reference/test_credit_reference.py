@@ -10,6 +10,7 @@ import numpy as np
 import pytest
 from credit_references import (
     independent_lattice_pmf,
+    mixed_one_factor_moments,
     mixed_one_factor_tail,
     one_factor_t_tail,
     one_factor_tail,
@@ -215,3 +216,48 @@ def test_mixed_book_var_matches_quadrature_and_parts_sum_to_tvar() -> None:
     assert len(labels) == 2 and labels[1] == "storm"
     total = sum(c.tvar_contribution for c in m.contributions)
     assert abs(total - m.tvar.value) <= 1e-12 * m.tvar.value
+
+
+@pytest.mark.parametrize("b", [0.5, -0.7])
+def test_mixed_book_std_dev_matches_one_factor_quadrature(b: float) -> None:
+    # Reference: credit_references.mixed_one_factor_moments, E[(L + S)^2] by conditioning on
+    # the factor (binomial defaults, the line's exact compound law through its latent normal;
+    # scipy.integrate). Tolerance 1e-3 relative: the level to which the engine's quadrature
+    # must first reproduce each line's own moments (core.dependence.moments.REPRODUCE). The
+    # covariance with the defaults moves the sd by +10% (b = 0.5) and -13% (b = -0.7) from
+    # the independent 25.50, so a missing or mis-signed covariance fails.
+    from core.credit.moments import loss_moments
+
+    ref_mean, ref_sd = mixed_one_factor_moments(N, PD, RHO, LGD, 4.0, 2.0, 5.0, b)
+    res = credit_tail(_mixed(b), levels=[0.99], precision=Precision(samples=2000), seed=6)
+    assert abs(res.mean - ref_mean) <= 1e-9 * ref_mean
+    assert abs(res.std_dev - ref_sd) <= 1e-3 * ref_sd, (res.std_dev, ref_sd)
+    assert loss_moments(_mixed(b))[1] == res.std_dev  # exceedance reports the same figure
+
+
+def test_mixed_book_std_dev_under_student_t_matches_direct_simulation() -> None:
+    # Reference: the sample sd of the model simulated directly with numpy and scipy alone
+    # (factor, chi-square mixing, binomial defaults given them, the line's exact gamma quantile
+    # at its t-copula uniform; one amount, so no lattice), within 4 of its standard errors
+    # (delta method: SE = sqrt(m4 - s^4) / (2 s sqrt(n))); fixed seed.
+    from core import Fixed, Gamma, Line
+    from core.credit.lines import FactorLine
+    from core.credit.moments import loss_moments
+
+    df, b, n_sim = 5.0, 0.6, 400_000
+    amount = Line(count=Fixed(n=1), severity=Gamma(shape=2.0, scale=20.0), label="large loss")
+    model = CreditModel(groups=_one_factor("student_t", df).groups,
+                        lines=(FactorLine(line=amount, factor_loadings=(b,)),), factors=1,
+                        copula="student_t", df=df)
+    mean, sd = loss_moments(model)
+    rng = np.random.default_rng(15)
+    z, e = rng.standard_normal(n_sim), rng.standard_normal(n_sim)
+    s = np.sqrt(rng.chisquare(df, n_sim) / df)
+    p = stats.norm.cdf((stats.t.ppf(PD, df) * s - math.sqrt(RHO) * z) / math.sqrt(1 - RHO))
+    loss = rng.binomial(N, p) * LGD + stats.gamma(2.0, scale=20.0).isf(
+        stats.t.cdf((b * z + math.sqrt(1 - b * b) * e) / s, df))
+    sd_sim = float(loss.std())
+    se = math.sqrt(float(np.mean((loss - loss.mean()) ** 4)) - sd_sim**4) / (
+        2 * sd_sim * math.sqrt(n_sim))
+    assert abs(sd - sd_sim) <= 4 * se, (sd, sd_sim, se)
+    assert abs(mean - (N * PD * LGD + 40.0)) <= 1e-9 * mean

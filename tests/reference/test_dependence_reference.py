@@ -187,6 +187,26 @@ def test_recursion_refuses_a_dependent_portfolio() -> None:
         tail_estimates(pf, levels=[0.99], method="recursion")
 
 
+@pytest.mark.parametrize("method", ["conditional", "conditional_is", "radial"])
+def test_amount_only_methods_refuse_copula_coupled_lines(method: str) -> None:
+    # These samplers exist only for correlated lognormal amounts (ABJR 2011, directional,
+    # Kortschak-Hashorva 2013); on compound lines they once ran mean_shift under their name.
+    lines = [Line(count=Poisson(mean=2.0), severity=Gamma(shape=2.0, scale=1.0)),
+             Line(count=Poisson(mean=3.0), severity=Gamma(shape=1.0, scale=2.0))]
+    pf = Portfolio(lines=lines, dependence=Copula(kind="gaussian",
+                                                   correlation=np.array([[1, 0.5], [0.5, 1]])))
+    for call in (lambda: exceedance(pf, [30.0], method=method),
+                 lambda: tail_estimates(pf, levels=[0.99], method=method)):
+        with pytest.raises(MethodError) as info:
+            call()
+        assert info.value.parameter == "method"
+        assert "auto, crude, mean_shift" in str(info.value) and method in str(info.value)
+    # the same method on lognormal amounts under a gaussian copula is served, and says so
+    res = exceedance(_amounts([0.0, 0.0], [1.0, 1.0], np.array([[1, 0.5], [0.5, 1]])), [30.0],
+                     method=method, precision=Precision(samples=2000), seed=3)
+    assert res.method == method
+
+
 def test_student_t_copula_two_lognormals_match_quadrature() -> None:
     # Reference: for a bivariate t (df nu, correlation rho), T2 | T1 = t is rho t plus
     # sqrt((nu + t^2)(1 - rho^2) / (nu + 1)) times a t with nu + 1 degrees of freedom (the
@@ -269,3 +289,29 @@ def test_dependent_compound_std_dev_exceeds_the_independent_one_and_matches_samp
     se_sd = math.sqrt((float(np.mean(c**4)) - var**2) / n) / (2.0 * math.sqrt(var))
     assert sd > 1.1 * Portfolio(lines=_two_lines()).std_dev
     assert abs(sd - math.sqrt(var)) <= 4 * se_sd, (sd, math.sqrt(var), se_sd)
+
+
+@pytest.mark.parametrize("top", [None, 250.0])
+def test_lattice_quantile_bounds_bracket_the_exact_compound_quantile(top: float | None) -> None:
+    # Reference: the exact Poisson(4) gamma(2, 5) law, P(S > y) as the series over the claim
+    # count of scipy gamma tails (credit_references.poisson_gamma_sf). For every upper-tail
+    # uniform the lattice's lower and upper quantiles must bracket F^{-1}(1 - ubar):
+    # sf(lower) >= ubar >= sf(upper). top = 250 is an exceedance-only request's lattice set
+    # (no fill lattices, reach just past the threshold), None a risk-measure request's.
+    from credit_references import poisson_gamma_sf
+
+    from core.dependence.marginals import line_quantiles
+
+    line = Line(count=Poisson(mean=4.0), severity=Gamma(shape=2.0, scale=5.0))
+    pf = Portfolio(lines=[line, line], dependence=Copula(kind="gaussian",
+                                                         correlation=np.eye(2)))
+    q = line_quantiles(pf, 1e-12, top)[0]
+    ubar = np.logspace(-12, 0, 400)[:-1]
+    lo, hi = q.bounds(ubar)
+    assert np.all(lo <= hi)
+    sf_lo = poisson_gamma_sf(4.0, 2.0, 5.0, lo)
+    assert np.all(sf_lo >= ubar * (1 - 1e-9)), ubar[sf_lo < ubar][:3]
+    finite = np.isfinite(hi)
+    assert np.all(poisson_gamma_sf(4.0, 2.0, 5.0, hi[finite]) <= ubar[finite] * (1 + 1e-9))
+    if top is not None:  # beyond the reach the upper bound says so by being infinite
+        assert not np.all(finite) and np.all(lo[~finite] >= 0.99 * top)

@@ -7,7 +7,7 @@ import math
 import numpy as np
 from scipy import stats
 
-from core import Line, Lognormal, MethodError, Normal, Poisson, Portfolio, Precision
+from core import Layer, Line, Lognormal, MethodError, Normal, Poisson, Portfolio, Precision
 from core import estimate_exceedance as exceedance
 from core.measures import tail_estimates
 
@@ -48,6 +48,21 @@ def test_negative_value_at_risk_is_refused_at_the_level():
         assert err.parameter == "levels.0"
     else:
         raise AssertionError("a negative VaR must be refused")
+
+
+def test_aggregate_layer_of_negative_claims_is_refused_at_the_layer():
+    # Poisson(5) normal(-10, 1), layer 10 xs 0: P(S > 0) is about 0.0337 * P(Z > 10) = 2.6e-25
+    # (scipy: poisson.pmf(1, 5) * norm.sf(10)); no estimator reached it (7e-61, flagged), so
+    # the layer is refused rather than answered, while exceedance still answers (below).
+    port = Portfolio(lines=[Line(count=Poisson(mean=5.0), severity=Normal(mean=-10.0, sd=1.0))])
+    try:
+        tail_estimates(port, layers=[Layer(attachment=0.0, limit=10.0)],
+                       precision=Precision(samples=2_000), seed=1)
+    except MethodError as err:
+        assert err.parameter == "layers.0"
+        assert "negative claims" in str(err)
+    else:
+        raise AssertionError("a layer of a sum with negative claims must be refused")
 
 
 def test_exceedance_with_negative_claims_matches_the_normal_mixture():

@@ -63,3 +63,15 @@ def test_dependent_exceedance_answers(client: TestClient) -> None:
     assert r.status_code == 200, r.text
     e = r.json()["estimates"][0]
     assert e["ci_low"] <= e["probability"] <= e["ci_high"]
+
+
+def test_amount_only_method_on_compound_lines_is_refused_at_method(client: TestClient) -> None:
+    line = {"count": {"kind": "poisson", "mean": 2.0},
+            "severity": {"family": "gamma", "shape": 2.0, "scale": 1.0}}
+    body = _body([[1.0, 0.5], [0.5, 1.0]])
+    body["portfolio"]["lines"] = [line, line]
+    for method in ("conditional", "conditional_is"):
+        body["method"] = method
+        d = _detail(client, body)
+        assert d["loc"] == ["body", "method"]
+        assert "correlated lognormal amounts" in d["msg"] and "mean_shift" in d["msg"]

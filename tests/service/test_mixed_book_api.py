@@ -226,3 +226,15 @@ def test_server_limits_apply_to_both_halves_of_a_mixed_book(make_client: Any) ->
     client = make_client(max_expected_claims=3.0)
     e = _refusal(client, book(0.3, 0.5))
     assert e["type"] == "limit_exceeded" and "max_expected_claims" in e["msg"]
+
+
+def test_risk_measures_of_a_loaded_mixed_book_report_the_std_dev(client: TestClient) -> None:
+    # The figure itself is checked against a one-factor quadrature of E[(L + S)^2] in
+    # tests/reference/test_credit_reference.py; here: it is served (not null) and exceeds the
+    # independent parts' root sum of variances (same-sign loadings add a positive covariance).
+    body = _body(book(math.sqrt(RHO), 0.5), samples=2000, levels=[0.99])
+    r = client.post("/v1/risk-measures", json=body)
+    assert r.status_code == 200, r.text
+    sd = r.json()["std_dev"]
+    ex2 = SHAPE * (SHAPE + 1) * SCALE**2
+    assert sd is not None and sd > math.sqrt(N * PD * (1 - PD) * LGD**2 + LAM * ex2)

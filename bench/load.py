@@ -298,15 +298,18 @@ def main(argv: list[str] | None = None) -> int:
                     max_requests=min(args.max_requests, 100_000),
                     concurrency=max(1, min(args.concurrency, 64)), workers=max(1, args.workers))
     if args.quick:
-        budget = Budget(duration_s=5.0, max_requests=60, concurrency=4, workers=budget.workers)
+        # Heavy requests a tenth of the size, and the split size with them (still split), so
+        # that the smoke run does not spend most of its time waiting for in-flight heavy work.
+        budget = Budget(duration_s=5.0, max_requests=60, concurrency=4, workers=budget.workers,
+                        heavy_samples=20_000, split_samples=10_000)
     recheck_most = max(0, min(args.recheck, 200)) if not args.quick else 4
     with tempfile.TemporaryDirectory(prefix="tailgauge-load-") as tmp:
-        process, base = _start_server(Path(tmp) / "data", budget.workers)
+        process, base = _start_server(Path(tmp) / "data", budget.workers, budget.split_samples)
         try:
             load_before = os.getloadavg()[0]
             record, elapsed = asyncio.run(_load(base, process.pid, budget))
             load_after = os.getloadavg()[0]
-            recheck = asyncio.run(_recheck(base, record, recheck_most))
+            recheck = asyncio.run(_recheck(base, record, recheck_most, budget.heavy_samples))
         finally:
             process.terminate()
             try:

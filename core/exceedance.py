@@ -22,7 +22,7 @@ from core.exceedance_records import (
     estimate_record,
     exceedance_result,
 )
-from core.precision import GroupRun, Precision, run_group
+from core.precision import GroupRun, Precision, past, run_group
 from core.results import ExceedanceEstimate, ExceedanceResult
 from core.sampling import block_size
 from core.streams import Purpose, Stream
@@ -88,7 +88,7 @@ def exceedance(
         registry.get(method)  # an unknown method is refused even when the answer is known
     if degenerate.surely_zero(portfolio):
         return degenerate.exceedance(x, seed, start)
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     if method == registry.AUTO:
         trials, reason = select.choose(portfolio, x, seed, samples=precision.minimum,
                                        deadline=deadline)
@@ -116,7 +116,7 @@ def exceedance(
                     tried.setdefault(i, [best.name]).append(f"{trial.name} (pilot flagged)")
             if not retry:
                 continue
-            if deadline is not None and time.monotonic() > deadline:
+            if past(deadline):
                 break
             more, more_stops = _run(trial, x, portfolio, precision, seed, deadline,
                                     only=retry)

@@ -41,7 +41,7 @@ from core.exceedance import check_seed
 from core.invariants import check_tail
 from core.levels import Layer, check_levels, guess_var, largest_claim_var
 from core.portfolio import Portfolio
-from core.precision import GroupRun, Precision, run_group
+from core.precision import GroupRun, Precision, past, run_group
 from core.results import (
     Contribution,
     Interval,
@@ -175,7 +175,7 @@ def _pilot_search(name: str, portfolio: Portfolio, q: np.ndarray, seed: int,
                     above = True
                 else:
                     low_side.append(i)
-        if not (low_side or above) or (lo <= 1e-12 and not above) or _late(deadline):
+        if not (low_side or above) or (lo <= 1e-12 and not above) or past(deadline):
             break
         lo, hi = (lo / 1e3 if low_side else lo), (hi * 1e3 if above else hi)
         lo = max(lo, 1e-12)
@@ -220,7 +220,7 @@ def tail_estimates(
                                         "copula-coupled sum are implemented; use auto")
         return registry.get(method).tail_bounds(portfolio, levels=list(q), layers=layers,
                                                 losses=losses, seed=seed)
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     names, reason = _choose(portfolio, q, _extra_points(layers, losses), method, seed,
                             deadline)
     if only_crude:
@@ -231,17 +231,13 @@ def tail_estimates(
         result = _estimate(name, portfolio, q, layers, losses, precision, seed, start, reason)
         if first is None:
             first = result
-        if _all_reliable(result) or _late(deadline):
+        if _all_reliable(result) or past(deadline):
             if result is not first and _all_reliable(result):
                 result.warnings.insert(0, f"{first.method} was flagged unreliable; "
                                           f"re-estimated with {name}")
             return result
     assert first is not None
     return first
-
-
-def _late(deadline: float | None) -> bool:
-    return deadline is not None and time.monotonic() > deadline
 
 
 def _with_atom_levels(portfolio: Portfolio, q: np.ndarray, at_zero: np.ndarray, *,
@@ -287,7 +283,7 @@ def _all_reliable(result: TailResult) -> bool:
 def _estimate(name: str, portfolio: Portfolio, q: np.ndarray, layers: Sequence[Layer],
               losses: Sequence[float], precision: Precision, seed: int, start: float,
               reason: str) -> TailResult:
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     anchors = _pilot_vars(name, portfolio, q, seed, deadline) if q.size else []
     anchors += [x for x in _extra_points(layers, losses) if x > 0]
     anchors = anchors or [portfolio.mean]
@@ -404,7 +400,7 @@ def _run(name: str, portfolio: Portfolio, a: np.ndarray, q: np.ndarray, layers: 
          start: float) -> tuple[_Curves, GroupRun]:
     """Main run: the grid's exceedance and stop-loss columns, then per layer its loss,
     attachment and exhaustion columns, then P(S > loss) per loss."""
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     extra = point_columns(layers, losses)
     points = np.concatenate([a, np.asarray(extra, dtype=float)])
     if portfolio.dependence is not None:

@@ -60,10 +60,6 @@ class _Rerun:
         return self.fn(portfolio, precision=precision, **self.kwargs)
 
 
-def _deadline(start: float, precision: Precision) -> float | None:
-    return None if precision.time_limit_s is None else start + precision.time_limit_s
-
-
 def tail_estimates_with_parameter_risk(
     portfolio: Portfolio, uncertainty: Mapping[int, ParameterUncertainty], *,
     levels: Sequence[float] = (), layers: Sequence[Any] = (), losses: Sequence[float] = (),
@@ -74,7 +70,7 @@ def tail_estimates_with_parameter_risk(
     precision = precision or Precision()
     central = tail_estimates(portfolio, levels=levels, layers=layers, losses=losses,
                              method=method, precision=precision, seed=seed)
-    rerun = _Rerun(tail_estimates, precision, _deadline(start, precision),
+    rerun = _Rerun(tail_estimates, precision, precision.deadline(start),
                    {"levels": levels, "layers": layers, "losses": losses, "seed": seed,
                     "method": _inner(method, central.method)})
     return central, nested(rerun, tail_figures, central, portfolio, uncertainty, seed,
@@ -94,7 +90,7 @@ def exceedance_with_parameter_risk(
     def call(p: Portfolio, *, precision: Precision, **kwargs: Any) -> ExceedanceResult:
         return exceedance(p, thresholds, precision=precision, **kwargs)
 
-    rerun = _Rerun(call, precision, _deadline(start, precision),
+    rerun = _Rerun(call, precision, precision.deadline(start),
                    {"seed": seed, "method": _inner(method, central.method)})
     return central, nested(rerun, exceedance_figures, central, portfolio, uncertainty, seed,
                            rerun.deadline)

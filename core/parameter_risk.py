@@ -21,7 +21,6 @@ a line from one stream, so the same seed gives the same draws.
 from __future__ import annotations
 
 import math
-import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import Any, Literal
@@ -32,6 +31,7 @@ from numpy.typing import NDArray
 from core.errors import ParameterError, TailgaugeError
 from core.fitting.lookup import model_of
 from core.portfolio import Portfolio
+from core.precision import past
 
 Floats = NDArray[np.float64]
 PARAMETER_DRAWS = 102  # spawn-key purpose of the parameter draws
@@ -153,7 +153,7 @@ def nested(run: Callable[[Portfolio], Any], extract: Callable[[Any], list[Figure
     rows: list[list[float]] = []
     warnings: list[str] = []
     for p in portfolios:
-        if deadline is not None and time.monotonic() > deadline:
+        if past(deadline):
             warnings.append(f"the time limit stopped the parameter draws after {len(rows)} "
                             f"of {len(portfolios)}")
             break

@@ -48,6 +48,10 @@ class Precision:
         if t is not None and not (t > 0 and math.isfinite(t)):
             raise ParameterError("precision.time_limit_s", f"must be > 0, got {t!r}")
 
+    def deadline(self, start: float) -> float | None:
+        """The monotonic time the call must stop at, for a call that began at `start`."""
+        return None if self.time_limit_s is None else start + self.time_limit_s
+
     @property
     def minimum(self) -> int:
         if self.samples is not None:
@@ -69,6 +73,11 @@ class GroupRun:
     samples: int
     stopped_by: str
     next_block: int = 0  # the block a continuation of this run starts at
+
+
+def past(deadline: float | None) -> bool:
+    """Whether a deadline (None: none) has passed."""
+    return deadline is not None and time.monotonic() > deadline
 
 
 def draw_blocks(group: Group, stream: Stream, seed: int, total: int, block: int, start: int = 0
@@ -110,7 +119,7 @@ def run_group(
         # The round's blocks are fixed before anything runs, so whoever runs which span (the
         # current runner, core.spans), the merged figures are the same.
         plan = list(blocks(next_check - done, block, start=index))
-        if done == 0 and plan and deadline is not None and time.monotonic() > deadline:
+        if done == 0 and plan and past(deadline):
             # Out of time before this sample set began (earlier groups, adaptation): a
             # short first block still gives an estimate with its error, not a whole block
             # past the limit (time-limited figures are not reproducible anyway).
@@ -120,7 +129,7 @@ def run_group(
         for result in runner(cut):
             parts.append(result.stats)
             done, index = done + result.samples, index + result.blocks
-            if not result.complete or (deadline is not None and time.monotonic() > deadline):
+            if not result.complete or past(deadline):
                 return GroupRun(ContributionStats.combine(parts), done, "time_limit", index)
         stats = ContributionStats.combine(parts)
         parts = [stats]

@@ -70,7 +70,7 @@ def credit_exceedance(
     seed = check_seed(seed)
     method = check_method(method)
     precision = precision or Precision()
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     if method == registry.AUTO:
         names, reason = choose(model, x, seed)
         name = names[0]

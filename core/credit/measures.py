@@ -201,7 +201,7 @@ def _run(model: CreditModel, name: str, a: np.ndarray, q: np.ndarray,
     block = layout_block(_values(_sampler(model, name, anchors), points,
                                  a.size if model.lines else 0), a.size, layers, losses)
     group = Group((0,), block, work(model, name, len(spread_out(anchors))), name)
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     error_of = _var_error(q, a) if q.size else _layer_error(a.size)
     run = run_group(group, block_size(model), precision, seed,
                     _stream(Purpose.MEASURE_SAMPLES, name), deadline, error_of=error_of)
@@ -266,7 +266,7 @@ def _with_contributions(model: CreditModel, name: str, measures: list[MeasureEst
     group = Group((0,), block, work(model, name, len(spread_out(anchors))), "Euler")
     fixed = Precision(samples=precision.samples or precision.minimum,
                       time_limit_s=precision.time_limit_s)
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     run = run_group(group, block_size(model), fixed, seed, _stream(Purpose.EULER, name),
                     deadline)
     mean = np.asarray(run.stats.mean(), dtype=float).reshape(nv, 2 * gs + 1)

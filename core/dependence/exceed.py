@@ -172,7 +172,7 @@ def dependent_exceedance(portfolio: Portfolio, x: FloatArray, method: str,
     if method != registry.AUTO:
         # refused at `method` unless it serves this dependent portfolio
         engine.estimator_for(method, portfolio)
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     if method == registry.AUTO:
         names, reason = choose(portfolio, x, seed)
     else:

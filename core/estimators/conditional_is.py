@@ -11,7 +11,6 @@ layers a mixture adapted at a few anchor points.
 
 from __future__ import annotations
 
-import time
 from collections.abc import Sequence
 
 import numpy as np
@@ -23,6 +22,7 @@ from core.estimators.estimator import AmountSampler, Estimator, ModelKind, RuinR
 from core.estimators.mixture import TiltFamily
 from core.functionals import spread_out
 from core.portfolio import Portfolio
+from core.precision import past
 from core.sampling import TiltGrid
 from core.streams import Purpose, Stream
 
@@ -78,7 +78,7 @@ def adapt_many(portfolio: Portfolio, xs: np.ndarray, seed: int, stream: Stream,
     family = capped_family(cond, float(xs.max()))
     thetas = [family.theta_for(float(x)) for x in xs]
     for r in range(_CE_ROUNDS):
-        if deadline is not None and time.monotonic() > deadline:
+        if past(deadline):
             break
         rng = stream.rng(seed, r)
         j = cond.choose(_CE_SAMPLES, rng)

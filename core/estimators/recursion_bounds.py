@@ -32,7 +32,7 @@ def exceedance_result(
     grid would not finish within the time limit (stopped_by "time_limit", with the bounds
     reached). Without a target, one default grid."""
     target = precision.relative_error
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     fine = _by_transform(portfolio, x, target, deadline)
     if fine is not None:
         bounds, cells, stopped = fine

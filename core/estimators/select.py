@@ -12,7 +12,6 @@ The pilot's size scales with the request (pilot_samples).
 from __future__ import annotations
 
 import math
-import time
 from dataclasses import dataclass
 
 import numpy as np
@@ -22,7 +21,7 @@ from core.errors import LimitError, MethodError, TailgaugeError
 from core.estimators import registry
 from core.estimators.base import Group
 from core.portfolio import Portfolio
-from core.precision import GroupRun, draw_blocks
+from core.precision import GroupRun, draw_blocks, past
 from core.sampling import block_size
 from core.streams import Purpose, Stream
 
@@ -110,7 +109,7 @@ def choose(portfolio: Portfolio, x: np.ndarray, seed: int, samples: int | None =
     if samples is not None:
         size = pilot_samples(samples, block_size(portfolio))
     for name in candidates(portfolio):
-        if trials and deadline is not None and time.monotonic() > deadline:
+        if trials and past(deadline):
             # Out of time: the candidates piloted so far are the choice (said in the reason).
             skipped.append(name)
             continue

@@ -212,7 +212,7 @@ def ruin(
         return ruin_bounds(process, u, horizon=horizon_t, target=target, precision=precision,
                            seed=seed, start=start)
     precision = precision or Precision()
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     gamma = adjustment_coefficient(process)
     constant = lundberg_constant(process, gamma) if gamma is not None else None
     ctx = Context(process, horizon_t, precision, seed, deadline, gamma, constant)

@@ -14,12 +14,12 @@ confidence. A bracket whose top is not known to suffice is widened until the ban
 from __future__ import annotations
 
 import math
-import time
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 import numpy as np
 
+from core.precision import past
 from core.results import CapitalForTarget, RuinEstimate
 from core.ruin.runner import OutOfTime
 
@@ -102,7 +102,7 @@ def search(
     b = bracket
     reached: tuple[float, float | None, float | None] | None = None
     for attempt in range(1 + WIDENINGS):
-        if deadline is not None and time.monotonic() > deadline:
+        if past(deadline):
             return _out_of_time(target, reached)
         u = b.grid()
         try:

@@ -31,7 +31,7 @@ import numpy as np
 from core.discretise import Grid, Lattice
 from core.errors import LimitError, MethodError
 from core.portfolio import Portfolio
-from core.precision import Precision
+from core.precision import Precision, past
 from core.recursion import (
     RECURSION_CELLS,
     RECURSION_MAX_CELLS,
@@ -158,7 +158,7 @@ class _SearchTimedOut(Exception):
 
 
 def _check_time(deadline: float | None) -> None:
-    if deadline is not None and time.monotonic() > deadline:
+    if past(deadline):
         raise _SearchTimedOut
 
 
@@ -198,7 +198,7 @@ def _capital_for_target(portfolio: Portfolio, ctx: Context, target: float,
         return CapitalForTarget(target=target, capital=None, ci_low=None, ci_high=None), \
             "samples", [note]
     found = top
-    if deadline is not None and time.monotonic() > deadline:
+    if past(deadline):
         note = (f"capital for target {target:g}: the time limit passed after the search; the "
                 f"lattice top {top:g} surely suffices (ci_high), the estimate was not computed")
         return CapitalForTarget(target=target, capital=None, ci_low=None, ci_high=top), \
@@ -228,7 +228,7 @@ def ruin_bounds(
     figures' ci_low / ci_high are rigorous bounds, the value a point estimate between them."""
     check_horizon(horizon)
     precision = precision or Precision()
-    deadline = None if precision.time_limit_s is None else start + precision.time_limit_s
+    deadline = precision.deadline(start)
     gamma = adjustment_coefficient(process)
     constant = lundberg_constant(process, gamma) if gamma is not None else None
     ctx = Context(process, math.inf, precision, seed, deadline, gamma, constant)

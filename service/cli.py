@@ -224,7 +224,8 @@ async def run_batch_file(
     report_path: Path | None = None,
 ) -> int:
     """``tailgauge run``: compute the batch, write the results, return the exit status."""
-    from service.worker import BatchRejected, run_locally
+    from service.batches import BatchRejected
+    from service.worker import run_locally
 
     batch = _read_batch(batch_path, stream)
     if batch is None:

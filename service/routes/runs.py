@@ -13,11 +13,12 @@ from fastapi import APIRouter, Body, Depends, Header, HTTPException, Query, Requ
 from fastapi.exceptions import RequestValidationError
 
 from service.auth import CallerDep
+from service.batches import BatchRejected, IdempotencyConflict
 from service.errors import detail_entry
 from service.examples import load_examples
 from service.routes.responses import ERROR_RESPONSES, ErrorBody
 from service.schemas.runs import RunAccepted, RunBatchIn, RunList, RunOut, RunStatusName
-from service.worker import BatchRejected, IdempotencyConflict, RunWorker, summary
+from service.worker import RunWorker, summary
 
 IDEMPOTENCY_HEADER = "Idempotency-Key"
 PAGE_DEFAULT = 50

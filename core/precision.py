@@ -72,7 +72,6 @@ class GroupRun:
     stats: ContributionStats
     samples: int
     stopped_by: str
-    next_block: int = 0  # the block a continuation of this run starts at
 
 
 def past(deadline: float | None) -> bool:
@@ -80,14 +79,11 @@ def past(deadline: float | None) -> bool:
     return deadline is not None and time.monotonic() > deadline
 
 
-def draw_blocks(group: Group, stream: Stream, seed: int, total: int, block: int, start: int = 0
-                ) -> GroupRun:
-    """`total` samples of a group in the blocks of the plan from block `start` on, as
-    run_group draws them; a run continued from it gives what one longer run would (a pilot
-    that counts towards the estimate)."""
-    stats = spans.draw(group, stream, seed, list(blocks(total, block, start=start)),
-                       top_k=TOP_K)
-    return GroupRun(stats, total, "samples", start + math.ceil(total / block))
+def draw_blocks(group: Group, stream: Stream, seed: int, total: int, block: int) -> GroupRun:
+    """`total` samples of a group in the blocks of the plan, as run_group draws them (auto's
+    exceedance pilots, on a stream of their own)."""
+    stats = spans.draw(group, stream, seed, list(blocks(total, block)), top_k=TOP_K)
+    return GroupRun(stats, total, "samples")
 
 
 def _worst_relative_error(stats: ContributionStats) -> float:
@@ -102,16 +98,11 @@ def run_group(
     group: Group, block: int, precision: Precision, seed: int, stream: Stream,
     deadline: float | None,
     error_of: Callable[[ContributionStats], float] = _worst_relative_error,
-    begun: GroupRun | None = None,
 ) -> GroupRun:
     """Draw blocks of one group until its stopping rule fires; `error_of` gives the figure
-    the relative-error target applies to (by default the worst estimate's). `begun`: samples
-    already drawn on this stream (auto's pilot, core.estimators.select), continued here."""
+    the relative-error target applies to (by default the worst estimate's)."""
     parts: list[ContributionStats] = []
     done, next_check, index = 0, precision.minimum, 0
-    if begun is not None:
-        parts, done, index = [begun.stats], begun.samples, begun.next_block
-        next_check = max(next_check, done)
     cap = precision.cap
     target = precision.relative_error
     runner = spans.current()
@@ -130,16 +121,16 @@ def run_group(
             parts.append(result.stats)
             done, index = done + result.samples, index + result.blocks
             if not result.complete or past(deadline):
-                return GroupRun(ContributionStats.combine(parts), done, "time_limit", index)
+                return GroupRun(ContributionStats.combine(parts), done, "time_limit")
         stats = ContributionStats.combine(parts)
         parts = [stats]
         if target is None:
-            return GroupRun(stats, done, "samples", index)
+            return GroupRun(stats, done, "samples")
         worst = error_of(stats)
         if worst <= target:
-            return GroupRun(stats, done, "relative_error", index)
+            return GroupRun(stats, done, "relative_error")
         if done >= cap:
-            return GroupRun(stats, done, "max_samples", index)
+            return GroupRun(stats, done, "max_samples")
         # Aim at the count the current error predicts, growing at most fourfold per round.
         want = done * min(4.0, max(1.25, 1.1 * (worst / target) ** 2)) if math.isfinite(
             worst) else 4.0 * done

@@ -1,7 +1,7 @@
 """Load test of a real server: latency by request class, errors, and server memory over time.
 
     python -m bench.load                 # 60 s or 3,000 requests, 8 connections (the default)
-    python -m bench.load --quick         # 5 s or 60 requests, used by the smoke test
+    python -m bench.load --quick         # 2.5 s or 40 requests, used by the smoke test
 
 Starts its own server (``python -m uvicorn service.app:app`` from this tree on 127.0.0.1, a
 fresh data dir, process pool of ``--workers``) and sends it a fixed mix, bounded in count and
@@ -286,7 +286,7 @@ def _print_tables(latency: list[dict[str, Any]], memory: list[dict[str, float]],
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0] if __doc__ else None)
-    parser.add_argument("--quick", action="store_true", help="5 s or 60 requests")
+    parser.add_argument("--quick", action="store_true", help="2.5 s or 40 requests")
     parser.add_argument("--duration", type=float, default=60.0, help="seconds (at most 600)")
     parser.add_argument("--max-requests", type=int, default=3000, help="at most 100,000")
     parser.add_argument("--concurrency", type=int, default=8, help="connections (at most 64)")
@@ -300,9 +300,9 @@ def main(argv: list[str] | None = None) -> int:
     if args.quick:
         # Heavy requests a tenth of the size, and the split size with them (still split), so
         # that the smoke run does not spend most of its time waiting for in-flight heavy work.
-        budget = Budget(duration_s=5.0, max_requests=60, concurrency=4, workers=budget.workers,
-                        heavy_samples=20_000, split_samples=10_000)
-    recheck_most = max(0, min(args.recheck, 200)) if not args.quick else 4
+        budget = Budget(duration_s=2.5, max_requests=40, concurrency=4, workers=budget.workers,
+                        heavy_samples=10_000, split_samples=5_000)
+    recheck_most = max(0, min(args.recheck, 200)) if not args.quick else 2
     with tempfile.TemporaryDirectory(prefix="tailgauge-load-") as tmp:
         process, base = _start_server(Path(tmp) / "data", budget.workers, budget.split_samples)
         try:

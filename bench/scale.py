@@ -135,8 +135,8 @@ def mixed_section(duration_s: float, connections: int, recheck: int, quick: bool
                   ) -> dict[str, Any]:
     budget = load.Budget(duration_s=duration_s, max_requests=100_000, concurrency=connections,
                          workers=2)
-    if quick:  # heavy requests a tenth of the size, still split across the workers
-        budget.heavy_samples, budget.split_samples = 20_000, 10_000
+    if quick:  # heavy requests a twentieth of the size, still split across the workers
+        budget.heavy_samples, budget.split_samples = 10_000, 5_000
     with tempfile.TemporaryDirectory(prefix="tailgauge-scale-") as tmp:
         process, base = load._start_server(Path(tmp) / "data", budget.workers,
                                            budget.split_samples)
@@ -269,9 +269,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--samples", type=int, default=10_000_000)
     parser.add_argument("--duration", type=float, default=30.0, help="mixed load, seconds")
     args = parser.parse_args(argv)
-    samples = 100_000 if args.quick else min(args.samples, 10_000_000)
+    samples = 40_000 if args.quick else min(args.samples, 10_000_000)
     split = split_section(samples)
-    mixed = mixed_section(2.0 if args.quick else min(args.duration, 300.0),
+    mixed = mixed_section(1.5 if args.quick else min(args.duration, 300.0),
                           4 if args.quick else 24, 2 if args.quick else 20, args.quick)
     over = overload_section(4 if args.quick else 30, samples, 10.0 if args.quick else 30.0)
     _print(split, mixed, over)

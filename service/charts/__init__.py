@@ -2,7 +2,7 @@
 
 One module per kind of chart, each with ``applies(response) -> bool`` and ``draw(response)
 -> Figure``; everything here is a pure function of a response schema object. ``render`` is
-the one entry point::
+the one entry point (it imports matplotlib on first use, service.charts.catalogue)::
 
     render("exceedance", ExceedanceResponse(...), "svg") -> b"<svg ..."
 
@@ -12,15 +12,12 @@ axis limits as ``data-x-min`` ... attributes, so that readers (and tests) can fi
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Literal, get_args
 
-from matplotlib.figure import Figure
 from pydantic import BaseModel
 
-from service.charts import contributions, exceedance, layers, measures, reliability, ruin, style
-from service.charts.style import MEDIA_TYPES, ImageFormat
+from service.charts.formats import MEDIA_TYPES, ImageFormat
 
 ChartKind = Literal["exceedance", "var_tvar", "layers", "ruin", "contributions", "reliability"]
 CHART_KINDS: tuple[str, ...] = get_args(ChartKind)
@@ -32,8 +29,6 @@ class Chart:
     name: str
     title: str
     caption: str  # what the chart shows, for a figure caption
-    applies: Callable[[BaseModel], bool]
-    draw: Callable[[BaseModel], Figure]
 
 
 CHARTS: dict[str, Chart] = {
@@ -42,23 +37,21 @@ CHARTS: dict[str, Chart] = {
         Chart("exceedance", "Exceedance curve",
               "P(S > x) against the loss x on log axes, with 95% intervals (rigorous bounds "
               "for method recursion); dotted lines mark the 1-in-10 to 1-in-1000 year return "
-              "periods (common practice).", exceedance.applies, exceedance.draw),
+              "periods (common practice)."),
         Chart("var_tvar", "Value-at-risk and tail value-at-risk",
-              "VaR and TVaR at each confidence level with their 95% intervals.",
-              measures.applies, measures.draw),
+              "VaR and TVaR at each confidence level with their 95% intervals."),
         Chart("layers", "Layer losses and probabilities",
               "Expected loss to each aggregate layer, and the probabilities that it is hit "
-              "and used up; hatched bars are flagged unreliable.", layers.applies, layers.draw),
+              "and used up; hatched bars are flagged unreliable."),
         Chart("ruin", "Ruin probability by capital",
               "psi(u) against the initial capital u, with the classical approximation and the "
-              "capital for the target when asked.", ruin.applies, ruin.draw),
+              "capital for the target when asked."),
         Chart("contributions", "Contributions to TVaR",
               "Euler contributions of each obligor group to TVaR per level (they add up to "
-              "TVaR), with 95% intervals.", contributions.applies, contributions.draw),
+              "TVaR), with 95% intervals."),
         Chart("reliability", "Reliability of each figure",
               "Relative error of every figure; hatched bars marked unreliable are figures "
-              "whose error bar the diagnostics do not trust.", reliability.applies,
-              reliability.draw),
+              "whose error bar the diagnostics do not trust."),
     )
 }
 assert tuple(CHARTS) == CHART_KINDS
@@ -66,7 +59,9 @@ assert tuple(CHARTS) == CHART_KINDS
 
 def kinds_for(response: BaseModel) -> list[str]:
     """The chart kinds that have something to show for this response, in display order."""
-    return [name for name, chart in CHARTS.items() if chart.applies(response)]
+    from service.charts.catalogue import DRAWINGS
+
+    return [name for name in CHARTS if DRAWINGS[name].applies(response)]
 
 
 class ChartNotApplicable(ValueError):
@@ -82,14 +77,11 @@ class ChartNotApplicable(ValueError):
 
 def render(kind: str, response: BaseModel, fmt: ImageFormat = "svg") -> bytes:
     """The chart of ``kind`` for ``response`` as SVG or PNG bytes."""
-    chart = CHARTS[kind]
-    if not chart.applies(response):
+    from service.charts.catalogue import DRAWINGS, draw
+
+    if not DRAWINGS[kind].applies(response):
         raise ChartNotApplicable(kind, kinds_for(response))
-    with style.drawing():
-        figure = chart.draw(response)
-        for ax in figure.axes:
-            style.tidy_log_ticks(ax)
-        return style.save(figure, fmt, title=chart.title)
+    return draw(CHARTS[kind], response, fmt)
 
 
 __all__ = ["CHARTS", "CHART_KINDS", "IMAGE_FORMATS", "MEDIA_TYPES", "Chart", "ChartKind",

@@ -13,7 +13,7 @@ import numpy as np
 from matplotlib.figure import Figure
 from pydantic import BaseModel
 
-from service.charts import style
+from service.charts import formats, style
 from service.schemas.risk_measures import MeasureOut, RiskMeasuresResponse
 
 if TYPE_CHECKING:  # imported for the annotation only: service.schemas.credit must be
@@ -67,7 +67,7 @@ def draw(response: BaseModel) -> Figure:
         offset = (k - (len(measures) - 1) / 2) * height
         bars = ax.barh(y[rows] + offset, values, height=height * 0.9, color=color,
                        hatch=hatch, edgecolor=style.INK, linewidth=0.6,
-                       label=f"TVaR {style.percent(m.level)}")
+                       label=f"TVaR {formats.percent(m.level)}")
         for j, patch in zip(rows, bars.patches, strict=True):
             patch.set_gid(f"bar-contribution-{k}-{j}")
         container = ax.errorbar(values, y[rows] + offset,

@@ -8,7 +8,7 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from pydantic import BaseModel
 
-from service.charts import style
+from service.charts import formats, style
 from service.schemas.layers import LayerOut, LayersResponse
 
 OFFSET = 0.14
@@ -20,8 +20,8 @@ def applies(response: BaseModel) -> bool:
 
 def layer_name(layer: LayerOut) -> str:
     """'15M xs 10M' (limit xs attachment, the trade's way of naming a layer)."""
-    width = "unlimited" if layer.limit is None else style.money(layer.limit)
-    return f"{width} xs {style.money(layer.attachment)}"
+    width = "unlimited" if layer.limit is None else formats.money(layer.limit)
+    return f"{width} xs {formats.money(layer.attachment)}"
 
 
 def _whiskers(values: list[float | None], lows: list[float | None],

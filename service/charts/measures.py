@@ -8,7 +8,7 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from pydantic import BaseModel
 
-from service.charts import style
+from service.charts import formats, style
 from service.schemas.risk_measures import RiskMeasuresResponse
 
 OFFSET = 0.12  # VaR left of the level, TVaR right of it, so the intervals do not overlap
@@ -54,7 +54,7 @@ def draw(response: BaseModel) -> Figure:
                          for i in bad], linestyle="none", marker="x", markersize=10,
                 markeredgewidth=1.8, color=style.ALERT, label="flagged unreliable",
                 gid="series-unreliable")
-    ax.set_xticks(x, [f"{style.percent(m.level)}\n{style.return_period(1 - m.level)}"
+    ax.set_xticks(x, [f"{formats.percent(m.level)}\n{formats.return_period(1 - m.level)}"
                       for m in measures])
     ax.set_xlim(-0.6, len(measures) - 0.4)
     ax.yaxis.set_major_formatter(style.MONEY_FORMAT)

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 from pydantic import BaseModel
 
-from service.charts.style import money, percent
+from service.charts.formats import money, percent
 from service.schemas.common import DiagnosticsOut
 from service.schemas.exceedance import ExceedanceResponse
 from service.schemas.layers import LayersResponse

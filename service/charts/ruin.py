@@ -7,7 +7,7 @@ from __future__ import annotations
 from matplotlib.figure import Figure
 from pydantic import BaseModel
 
-from service.charts import style
+from service.charts import formats, style
 from service.schemas.ruin import RuinResponse
 
 
@@ -60,7 +60,7 @@ def draw(response: BaseModel) -> Figure:
                        linewidth=0, gid="guide-capital-interval")
         if target.capital is not None:
             ax.axvline(target.capital, color=style.COPPER, linewidth=1.0, gid="guide-capital")
-            ax.annotate(f"capital for {target.target:g}: {style.money(target.capital)}",
+            ax.annotate(f"capital for {target.target:g}: {formats.money(target.capital)}",
                         xy=(target.capital, target.target), xytext=(6, 6),
                         textcoords="offset points", fontsize=8, color=style.INK)
     ax.xaxis.set_major_formatter(style.MONEY_FORMAT)

@@ -29,7 +29,7 @@ from matplotlib.ticker import (
     NullLocator,
 )
 
-ImageFormat = Literal["svg", "png"]
+from service.charts.formats import ImageFormat, count, money, probability
 
 # Lightness steps from dark to light, each a different hue (checked in greyscale).
 INK = "#1f2d3d"  # text, estimates
@@ -67,9 +67,6 @@ _RC: dict[str, Any] = {
 # matplotlib keeps global state (font cache, rcParams): one figure is drawn at a time.
 _LOCK = threading.Lock()
 
-MEDIA_TYPES: dict[ImageFormat, str] = {"svg": "image/svg+xml", "png": "image/png"}
-
-
 @contextmanager
 def drawing() -> Iterator[None]:
     """Hold the drawing lock with our style in force."""
@@ -106,32 +103,7 @@ def value_grid(ax: Axes, axis: Literal["x", "y"]) -> None:
     ax.set_axisbelow(True)
 
 
-def money(value: float, _: object = None) -> str:
-    """12500000 -> '12.5M': short money labels in the caller's unit."""
-    if not math.isfinite(value):
-        return ""
-    size = abs(value)
-    for scale, suffix in ((1e12, "T"), (1e9, "G"), (1e6, "M"), (1e3, "k")):
-        if size >= scale:
-            return f"{value / scale:.3g}{suffix}"
-    return f"{value:.3g}"
-
-
 MONEY_FORMAT = FuncFormatter(money)
-
-
-def probability(value: float, _: object = None) -> str:
-    """Plain tick labels for probabilities (no mathtext: it is slow and needs no TeX look)."""
-    if not math.isfinite(value) or value <= 0:
-        return ""
-    return f"{value:g}" if value >= 1e-4 else f"{value:.0e}".replace("e-0", "e-")
-
-
-def count(value: float, _: object = None) -> str:
-    """Tick labels for return periods and other plain magnitudes: 1,000 and 1e+06."""
-    if not math.isfinite(value) or value <= 0:
-        return ""
-    return f"{value:,.0f}" if 1 <= value < 1e6 else f"{value:.0e}".replace("e+0", "e")
 
 
 PROBABILITY_FORMAT = FuncFormatter(probability)
@@ -158,16 +130,6 @@ def tidy_log_ticks(ax: Axes) -> None:
         decades = abs(math.log10(high / low))
         subs = (1.0, 2.0, 5.0) if decades < 1.2 else (1.0, 3.0) if decades < 2.5 else (1.0,)
         axis.set_major_locator(LogLocator(base=10, subs=subs, numticks=12))
-
-
-def percent(level: float) -> str:
-    """0.995 -> '99.5%'."""
-    return f"{100 * level:.6g}%"
-
-
-def return_period(probability: float) -> str:
-    """0.005 -> '1 in 200'."""
-    return f"1 in {1 / probability:,.4g}" if probability > 0 else "never observed"
 
 
 def axis_ranges(fig: Figure) -> dict[str, dict[str, str]]:

@@ -8,7 +8,6 @@ from html import escape
 
 from pydantic import BaseModel
 
-from service.charts.contributions import contributions_of
 from service.report.numbers import MISSING, amount, interval, percent, probability, years
 from service.schemas.common import DiagnosticsOut
 from service.schemas.exceedance import ExceedanceResponse
@@ -79,7 +78,7 @@ def risk_measures(r: RiskMeasuresResponse) -> list[Table]:
              for x in r.loss_return_periods],
             [False for _ in r.loss_return_periods]))
     for m in r.measures:
-        parts = contributions_of(m)
+        parts = list(m.contributions)
         if parts:
             tables.append(Table(
                 f"Contributions to TVaR {percent(m.level)} (Euler allocation)",

@@ -262,3 +262,19 @@ def test_colours_drawn_together_differ_in_greyscale(group: tuple[str, ...]) -> N
     gaps = [b - a for a, b in itertools.pairwise(values)]
     assert min(gaps) > 0.05, (group, values)
 
+
+
+def test_the_service_starts_without_matplotlib_and_draws_with_it_on_demand():
+    # matplotlib is 0.7 s of a server's start; only a chart request needs it (render and
+    # kinds_for import the catalogue, tested above through every chart endpoint).
+    import subprocess
+    import sys
+
+    from server_processes import ROOT, environment
+
+    code = ("import sys, service.app; assert 'matplotlib' not in sys.modules, 'at start'; "
+            "import service.charts.catalogue; "
+            "assert 'matplotlib' in sys.modules")
+    done = subprocess.run([sys.executable, "-c", code], cwd=ROOT, env=environment(),
+                          capture_output=True, text=True, timeout=60, check=False)
+    assert done.returncode == 0, done.stderr

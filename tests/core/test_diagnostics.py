@@ -325,3 +325,17 @@ def test_invalid_inputs_raise_errors_naming_the_argument() -> None:
             [good, ContributionStats.from_samples(np.ones((4, 2)), top_k=8, chunk=1)])
     with pytest.raises(ParameterError, match="values"):
         ContributionStats.combine([good, ContributionStats.from_samples(np.ones((4, 3)), chunk=1)])
+
+
+@pytest.mark.parametrize("zero_share", [0.0, 0.6, 0.99, 1.0])
+def test_largest_entries_match_a_full_sort_whatever_the_share_of_zeros(zero_share):
+    # Reference: a full descending sort of each row (numpy), cut at k. The sparse path
+    # (mostly zeros: tail indicators) must give the same entries to the bit.
+    from core.diagnostics import _largest
+
+    rng = np.random.default_rng(7)
+    rows = rng.pareto(1.5, size=(40, 3000))
+    rows[rng.random(rows.shape) < zero_share] = 0.0
+    rows[0, :9] = rows[0, 9]  # ties among the non-zero entries too
+    expected = -np.sort(-rows, axis=1)[:, :1024]
+    assert np.array_equal(_largest(rows, 1024), expected)

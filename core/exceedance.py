@@ -96,7 +96,7 @@ def exceedance(
         chosen = registry.get(method)
         if chosen.deterministic:
             return chosen.exceedance_bounds(portfolio, x, precision, seed, start)
-        groups = chosen.plan(portfolio, x, seed, deadline=deadline)
+        groups = chosen.plan(portfolio, x, seed, deadline=deadline, samples=precision.minimum)
         trials, reason = [select.Trial(method, groups, 0.0, np.ones(x.size, bool),
                                        np.zeros(x.size))], f"{method} requested"
     best = trials[0]

@@ -13,7 +13,7 @@ import tomllib
 from importlib.metadata import PackageNotFoundError, version
 from pathlib import Path
 
-FALLBACK_VERSION = "0.4.0"
+FALLBACK_VERSION = "0.5.0"
 _PYPROJECT = Path(__file__).resolve().parents[1] / "pyproject.toml"
 
 

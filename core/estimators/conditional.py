@@ -191,7 +191,7 @@ class Conditional(Estimator):
         return None if portfolio.is_light else 0
 
     def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
-             deadline: float | None = None) -> list[Group]:
+             deadline: float | None = None, samples: int | None = None) -> list[Group]:
         return plan_plain(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],

@@ -27,9 +27,11 @@ from core.sampling import TiltGrid
 from core.streams import Purpose, Stream
 
 NAME = "conditional_is"
-# Moment-matching updates of theta from its start, each on its own pilot block.
+# Moment-matching updates of theta from its start, each on its own pilot block of
+# ce_samples(request) draws.
 _CE_ROUNDS = 2
 _CE_SAMPLES = 4096
+_CE_SHARE, _CE_MIN = 0.25, 1024
 # Share of samples drawn from the model itself (defensive mixture, Hesterberg 1995): it caps
 # the likelihood ratio at 1 / DEFENSIVE, so a region the adapted proposal neglects (one claim
 # filling the gap) cannot hide behind a small reported error.
@@ -57,6 +59,14 @@ def capped_family(cond: Conditioning, x: float) -> TiltFamily:
     return TiltFamily(cond.portfolio, grids, lead=lead, big=big, big_share=BIG_SHARE)
 
 
+def ce_samples(request: int | None) -> int:
+    """Draws per adaptation round: _CE_SAMPLES, or a quarter of a smaller request (at least
+    _CE_MIN), so that adapting a 2,000-sample request does not cost four times the request."""
+    if request is None:
+        return _CE_SAMPLES
+    return int(min(_CE_SAMPLES, max(_CE_MIN, _CE_SHARE * request)))
+
+
 def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream,
           deadline: float | None = None) -> tuple[TiltFamily, float]:
     """One threshold's adapted family and theta (adapt_many with one threshold)."""
@@ -65,7 +75,8 @@ def adapt(portfolio: Portfolio, x: float, seed: int, stream: Stream,
 
 
 def adapt_many(portfolio: Portfolio, xs: np.ndarray, seed: int, stream: Stream,
-               deadline: float | None = None) -> tuple[TiltFamily, list[float]]:
+               deadline: float | None = None, samples: int = _CE_SAMPLES
+               ) -> tuple[TiltFamily, list[float]]:
     """Moment matching (the cross-entropy update of a natural exponential family) of one theta
     per threshold, from the start E_theta[S_-] = x, round r on block r of `stream`. Each round
     draws one sample set from the current mixture; weighted by the mixture's exact likelihood
@@ -81,10 +92,10 @@ def adapt_many(portfolio: Portfolio, xs: np.ndarray, seed: int, stream: Stream,
         if past(deadline):
             break
         rng = stream.rng(seed, r)
-        j = cond.choose(_CE_SAMPLES, rng)
-        draw = family.draw(thetas, _CE_SAMPLES, rng, j, defensive=DEFENSIVE)
+        j = cond.choose(samples, rng)
+        draw = family.draw(thetas, samples, rng, j, defensive=DEFENSIVE)
         v = cond.values(draw, j, xs)
-        refs = np.zeros(_CE_SAMPLES)
+        refs = np.zeros(samples)
         for k in family.grids:
             score = draw.line_scores[k]
             assert score is not None
@@ -126,7 +137,7 @@ def cap_groups(cond: Conditioning, xs: np.ndarray) -> list[list[int]]:
 
 
 def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int,
-            deadline: float | None = None) -> list[Group]:
+            deadline: float | None = None, samples: int | None = None) -> list[Group]:
     """Asmussen-Kroese with adapted importance sampling. Thresholds with close caps
     (cap_groups) share one sample set, drawn from the defensive mixture of their components
     (adapted jointly) and weighted by its exact likelihood ratio; each keeps its own
@@ -136,7 +147,8 @@ def plan_is(portfolio: Portfolio, thresholds: np.ndarray, seed: int,
     out = []
     for gid, members in enumerate(cap_groups(cond, xs)):
         family, thetas = adapt_many(portfolio, xs[members], seed,
-                                    Stream(Purpose.ADAPT, NAME, (gid,)), deadline)
+                                    Stream(Purpose.ADAPT, NAME, (gid,)), deadline,
+                                    ce_samples(samples))
         out.append(_is_group(cond, family, thetas, members, xs[members]))
     return out
 
@@ -198,8 +210,8 @@ class ConditionalIS(Estimator):
         return None if portfolio.is_light else 1
 
     def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
-             deadline: float | None = None) -> list[Group]:
-        return plan_is(portfolio, thresholds, seed, deadline)
+             deadline: float | None = None, samples: int | None = None) -> list[Group]:
+        return plan_is(portfolio, thresholds, seed, deadline, samples)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],
                       seed: int, *, deadline: float | None = None) -> BlockFn:

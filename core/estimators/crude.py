@@ -41,7 +41,7 @@ class Crude(Estimator):
         return 9  # always a candidate, and the last resort
 
     def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
-             deadline: float | None = None) -> list[Group]:
+             deadline: float | None = None, samples: int | None = None) -> list[Group]:
         return plan(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],

@@ -113,9 +113,10 @@ class Estimator:
         return None
 
     def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
-             deadline: float | None = None) -> list[Group]:
+             deadline: float | None = None, samples: int | None = None) -> list[Group]:
         """Groups of thresholds sharing one sample set, for P(S > x); `deadline` (a
-        time.monotonic() value) bounds any adaptation done while planning. Here (a method
+        time.monotonic() value) bounds any adaptation done while planning, and `samples`
+        (the request's samples per set, None: unknown) sizes it. Here (a method
         whose sampler lives in its own dispatcher): its own refusal first, as it says why."""
         self.check(portfolio)
         raise MethodError("method", f"{self.name} cannot estimate exceedance probabilities")

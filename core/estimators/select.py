@@ -48,8 +48,8 @@ def candidates(portfolio: Portfolio) -> list[str]:
 
 
 def plan(name: str, portfolio: Portfolio, x: np.ndarray, seed: int,
-         deadline: float | None = None) -> list[Group]:
-    return registry.get(name).plan(portfolio, x, seed, deadline=deadline)
+         deadline: float | None = None, samples: int | None = None) -> list[Group]:
+    return registry.get(name).plan(portfolio, x, seed, deadline=deadline, samples=samples)
 
 
 @dataclass
@@ -79,7 +79,7 @@ def pilot(name: str, portfolio: Portfolio, x: np.ndarray, seed: int,
           samples: int | None = None, deadline: float | None = None) -> Trial:
     """Pilot one candidate. samples: the request's samples per sample set, which size an
     exceedance pilot; None: a pilot of PILOT_SAMPLES (risk measures)."""
-    groups = plan(name, portfolio, x, seed, deadline)
+    groups = plan(name, portfolio, x, seed, deadline, samples)
     relvar = np.full(x.size, math.inf)
     reliable = np.zeros(x.size, dtype=bool)
     cost = 0.0

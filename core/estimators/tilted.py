@@ -200,7 +200,7 @@ class Tilted(Estimator):
         return 0 if portfolio.is_light else None
 
     def plan(self, portfolio: Portfolio, thresholds: np.ndarray, seed: int, *,
-             deadline: float | None = None) -> list[Group]:
+             deadline: float | None = None, samples: int | None = None) -> list[Group]:
         return plan(portfolio, thresholds)
 
     def contributions(self, portfolio: Portfolio, points: np.ndarray, anchors: Sequence[float],

@@ -66,9 +66,14 @@ def pilots_table(samples: int, repeats: int, http: bool) -> dict[str, Any]:
     for method in ("auto", "conditional", "conditional_is", "crude"):
         calls[method] = _direct(method, FIVE, samples)
     chosen = exceedance(PORTFOLIO, FIVE, precision=Precision(samples=samples), seed=SEED)
+    # The largest relative error over the five thresholds of each method's own run: with the
+    # time it gives the work-normalised variance (seconds x relative error squared).
+    errors = {m: max(e.relative_error or math.inf for e in exceedance(
+        PORTFOLIO, FIVE, method=m, precision=Precision(samples=samples), seed=SEED).estimates)
+        for m in ("auto", "conditional", "conditional_is", "crude")}
     if not http:
         return {"seconds": best_of(calls, repeats), "auto_chose": chosen.method,
-                "reason": chosen.method_reason}
+                "reason": chosen.method_reason, "relative_error": errors}
     from fastapi.testclient import TestClient
 
     from service.app import create_app
@@ -85,7 +90,8 @@ def pilots_table(samples: int, repeats: int, http: bool) -> dict[str, Any]:
         post()  # warm-up: the worker's imports and first-call caches
         calls["auto over HTTP"] = post
         seconds = best_of(calls, repeats)
-    return {"seconds": seconds, "auto_chose": chosen.method, "reason": chosen.method_reason}
+    return {"seconds": seconds, "auto_chose": chosen.method, "reason": chosen.method_reason,
+            "relative_error": errors}
 
 
 def _ratio(a: float | None, b: float | None) -> float:
@@ -118,10 +124,14 @@ def _print(pilots: dict[str, Any], sharing: dict[str, Any], samples: int) -> Non
     floor = sec["numpy floor"]
     print(f"\n## Exceedance, lognormal(0,1), n = 10, five thresholds, {samples:g} samples\n")
     print(f"auto chose {pilots['auto_chose']}: {pilots['reason']}\n")
-    print("| call | seconds | x numpy floor |")
-    print("|---|---|---|")
+    print("| call | seconds | x numpy floor | largest rel. error | seconds x rel. error^2 |")
+    print("|---|---|---|---|---|")
+    errors = pilots["relative_error"]
     for name, s in sec.items():
-        print(f"| {name} | {s:.4f} | {s / floor:.2f} |")
+        err = errors.get(name.removesuffix(" over HTTP"))
+        wnv = "" if err is None else f"{s * err ** 2:.3g}"
+        print(f"| {name} | {s:.4f} | {s / floor:.2f} | {'' if err is None else f'{err:.3g}'} "
+              f"| {wnv} |")
     sec2 = sharing["seconds"]
     print(f"\n## conditional_is: twenty thresholds in one sample set, {samples:g} samples\n")
     print(f"cost: twenty thresholds {sec2['twenty thresholds']:.4f} s, one threshold "

@@ -36,6 +36,7 @@ import numpy as np
 import numpy.typing as npt
 from scipy import special, stats
 
+from core import chunk_summary
 from core.errors import ParameterError
 from core.results import Diagnostics
 
@@ -67,10 +68,6 @@ _PRIOR_SHAPE = 0.5
 # quantiles of a prior with this weight; PSIS uses 30 grid points where the 2009 paper used 20.
 _MIN_GRID = 30
 _GRID_PRIOR = 3.0
-
-# Power-of-two exponent of an all-zero chunk: below any real exponent, so it never sets the
-# common scale, and 0 * 2**anything stays 0.
-_EMPTY_EXPONENT = -(2**20)
 
 
 # --- Pareto tail shape ----------------------------------------------------------------------
@@ -180,28 +177,20 @@ class ContributionStats:
             raise ParameterError("values", f"must have shape (samples, estimates), got {v.shape}")
         _check_count("top_k", top_k, minimum=1)
         _check_count("chunk", chunk, minimum=0)
-        # One estimate per contiguous row: numpy reduces along the last axis many times faster.
-        rows = np.ascontiguousarray(v.T)
-        biggest = rows.max(axis=1)
-        # min >= 0 is False for NaN, and a finite max rules out +inf.
-        if not (np.all(rows.min(axis=1) >= 0) and np.all(np.isfinite(biggest))):
+        c = chunk_summary.summarise(v, int(top_k))
+        if c is None:
             raise ParameterError("values", "contributions must be finite and non-negative")
-        exponent = np.where(biggest > 0, np.frexp(biggest)[1], _EMPTY_EXPONENT).astype(np.int64)
-        scaled = _times_power_of_two(rows, -np.where(biggest > 0, exponent, 0))
-        mean = scaled.mean(axis=1)
-        dev = scaled - mean[:, None]
-        m2 = np.einsum("ij,ij->i", dev, dev)
         return cls(
             top_k=int(top_k),
             n=int(v.shape[0]),
-            hits=np.count_nonzero(rows, axis=1).astype(np.int64),
-            maximum=biggest,
-            top=_largest(rows, int(top_k)).T.copy(),
+            hits=c.hits,
+            maximum=c.maximum,
+            top=c.top,
             chunk_index=np.array([chunk], dtype=np.int64),
             chunk_count=np.array([v.shape[0]], dtype=np.int64),
-            chunk_mean=mean[None, :],
-            chunk_m2=m2[None, :],
-            chunk_exponent=exponent[None, :],
+            chunk_mean=c.mean[None, :],
+            chunk_m2=c.m2[None, :],
+            chunk_exponent=c.exponent[None, :],
         )
 
     @classmethod
@@ -235,7 +224,8 @@ class ContributionStats:
             n=sum(p.n for p in parts),
             hits=np.sum([p.hits for p in parts], axis=0),
             maximum=np.max([p.maximum for p in parts], axis=0),
-            top=_largest(np.concatenate([p.top for p in parts]).T, first.top_k).T.copy(),
+            top=chunk_summary.largest(np.concatenate([p.top for p in parts]).T,
+                                     first.top_k).T.copy(),
             chunk_index=index,
             chunk_count=stacked("chunk_count"),
             chunk_mean=stacked("chunk_mean"),
@@ -421,39 +411,6 @@ def _batch_band(batches: int) -> tuple[float, float]:
     dof = batches - 1
     q = stats.chi2.ppf([BATCH_FALSE_ALARM / 2, 1 - BATCH_FALSE_ALARM / 2], dof)
     return float(math.sqrt(q[0] / dof)), float(math.sqrt(q[1] / dof))
-
-
-def _largest(rows: FloatArray, k: int) -> FloatArray:
-    """The k largest entries of each row (all of them if fewer), descending; shape (T, <=k).
-    Entries are non-negative (from_samples checks)."""
-    m = rows.shape[1]
-    if m <= k:
-        return np.sort(rows, axis=1)[:, ::-1]
-    if 2 * np.count_nonzero(rows) < rows.size:
-        return _largest_sparse(rows, k)
-    return np.sort(np.partition(rows, m - k, axis=1)[:, m - k :], axis=1)[:, ::-1]
-
-
-def _largest_sparse(rows: FloatArray, k: int) -> FloatArray:
-    """_largest for rows mostly of zeros (tail indicators, stop-loss terms), where
-    np.partition slows down tenfold on the ties: sort only the non-zero entries, by row and
-    then descending, and pad each row with zeros."""
-    r, c = np.nonzero(rows)
-    values = rows[r, c]
-    order = np.lexsort((-values, r))
-    r, values = r[order], values[order]
-    rank = np.arange(r.size) - np.searchsorted(r, np.arange(rows.shape[0]))[r]
-    keep = rank < k
-    out = np.zeros((rows.shape[0], k))
-    out[r[keep], rank[keep]] = values[keep]
-    return out
-
-
-def _times_power_of_two(rows: FloatArray, powers: IntArray) -> FloatArray:
-    """rows * 2**powers (one power per row), exactly; a multiply is ~15x faster than ldexp."""
-    if np.all(np.abs(powers) < 1000):  # 2**power is a normal float: the product is exact
-        return rows * np.ldexp(1.0, powers)[:, None]
-    return np.ldexp(rows, powers[:, None])
 
 
 def _check_count(name: str, value: object, *, minimum: int) -> None:

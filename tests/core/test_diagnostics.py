@@ -331,11 +331,41 @@ def test_invalid_inputs_raise_errors_naming_the_argument() -> None:
 def test_largest_entries_match_a_full_sort_whatever_the_share_of_zeros(zero_share):
     # Reference: a full descending sort of each row (numpy), cut at k. The sparse path
     # (mostly zeros: tail indicators) must give the same entries to the bit.
-    from core.diagnostics import _largest
+    from core.chunk_summary import largest
 
     rng = np.random.default_rng(7)
     rows = rng.pareto(1.5, size=(40, 3000))
     rows[rng.random(rows.shape) < zero_share] = 0.0
     rows[0, :9] = rows[0, 9]  # ties among the non-zero entries too
     expected = -np.sort(-rows, axis=1)[:, :1024]
-    assert np.array_equal(_largest(rows, 1024), expected)
+    assert np.array_equal(largest(rows, 1024), expected)
+
+
+@pytest.mark.parametrize("zero_share", [0.0, 0.6, 0.99, 1.0])
+def test_a_chunk_mostly_of_zeros_has_numpys_mean_and_variance(zero_share):
+    # Reference: numpy's mean and variance of each column (ddof=1). A chunk with more than half
+    # zeros is summarised from its non-zero entries only (core.chunk_summary): its figures must
+    # agree to rounding, and its hits, maximum and largest entries exactly.
+    rng = np.random.default_rng(11)
+    v = rng.lognormal(0.0, 2.0, size=(5000, 7)) * 1e-150
+    v[rng.random(v.shape) < zero_share] = 0.0
+    s = ContributionStats.from_samples(v, top_k=64)
+    np.testing.assert_allclose(s.mean(), v.mean(axis=0), rtol=1e-12, atol=0)
+    std_error = v.std(axis=0, ddof=1) / math.sqrt(v.shape[0])
+    np.testing.assert_allclose(s.std_error(), std_error, rtol=1e-10, atol=0)
+    assert np.array_equal(s.hits, np.count_nonzero(v, axis=0))
+    assert np.array_equal(s.maximum, v.max(axis=0))
+    assert np.array_equal(s.top, -np.sort(-v, axis=0)[:64])
+
+
+def test_a_mostly_zero_chunk_with_a_negative_or_nan_entry_is_refused():
+    v = np.zeros((100, 3))
+    v[5, 1] = -1.0
+    with pytest.raises(ParameterError):
+        ContributionStats.from_samples(v)
+    v[5, 1] = math.nan
+    with pytest.raises(ParameterError):
+        ContributionStats.from_samples(v)
+    v[5, 1] = math.inf
+    with pytest.raises(ParameterError):
+        ContributionStats.from_samples(v)

@@ -14,14 +14,6 @@ from collections.abc import Sequence
 import numpy as np
 
 from core.sampling import Draw
-from core.severities import Severity
-
-
-def excess_mean(sev: Severity, t: np.ndarray) -> np.ndarray:
-    """E[(X - t)+] of a non-negative claim, for any real t."""
-    inside = np.maximum(t, 0.0)
-    pi = np.maximum(sev.mean - np.asarray(sev.lev(inside), dtype=float), 0.0)
-    return pi + (inside - t)
 
 
 def plain_values(draw: Draw, a: np.ndarray) -> np.ndarray:

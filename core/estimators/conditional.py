@@ -26,7 +26,6 @@ from core.errors import MethodError
 from core.estimators.base import BlockFn, Group, work_per_sample
 from core.estimators.estimator import AmountSampler, Estimator, ModelKind, RuinRegime
 from core.estimators.mixture import TiltFamily
-from core.functionals import excess_mean
 from core.portfolio import Portfolio
 from core.sampling import Draw, draw_block
 from core.severities import Capped
@@ -66,7 +65,7 @@ class Conditioning:
         """Per-sample contributions to P(S > x_g), shape (m, G); with stop_loss also to
         E[(S - x_g)+] in G more columns. Given the rest, the conditioned claim X of line J
         exceeds t = max(M, x - S_-) with probability Fbar(t), and on that event contributes
-        E[(X - b) 1{X > t}] = E[(X - t)+] + (t - b) Fbar(t) to the stop loss, b = x - S_-."""
+        E[(X - b) 1{X > t}] = E[X; X > t] - b Fbar(t) to the stop loss, b = x - S_-."""
         lines = self.portfolio.lines
         m = draw.total.size
         top = np.full(m, -np.inf)
@@ -87,7 +86,7 @@ class Conditioning:
                     logsf[mask] = sev.logsf(t[mask])
                     if stop_loss:
                         tk = t[mask]
-                        sl[mask] = excess_mean(sev, tk) + (tk - b[mask]) * np.exp(logsf[mask])
+                        sl[mask] = sev.tail_mean(tk) - b[mask] * np.exp(logsf[mask])
         log_v = logsf + (math.log(self.rate) + draw.log_lr)[:, None]
         v = np.exp(log_v)
         light_sum = np.zeros(m)

@@ -245,6 +245,18 @@ class Severity(abc.ABC):
         return self._evaluate(t, self._lev, lambda v: v, lambda v: np.full(v.shape, self.mean))
 
     @overload
+    def tail_mean(self, t: float) -> float: ...
+    @overload
+    def tail_mean(self, t: _Array) -> _Floats: ...
+    def tail_mean(self, t: ArrayLike) -> Any:
+        """E[X; X > t], the first moment beyond t (the stop loss is tail_mean(t) - t sf(t))."""
+        return self._evaluate(t, self._tail_mean, lambda v: np.full(v.shape, self.mean), 0.0)
+
+    def _tail_mean(self, t: _Floats) -> _Floats:
+        # mean - lev(t) cancels far in the tail: families with a closed form override this.
+        return np.maximum(self.mean - self._lev(t), 0.0) + t * np.exp(self._logsf(t))
+
+    @overload
     def lev2(self, t: float) -> float: ...
     @overload
     def lev2(self, t: _Array) -> _Floats: ...

@@ -78,6 +78,11 @@ class Lognormal(Severity):
     def _lev(self, t: _Floats) -> _Floats:
         return self._limited(t, 1)
 
+    def _tail_mean(self, t: _Floats) -> _Floats:
+        # E[X; X > t] = exp(mu + sigma^2 / 2) Phi(sigma - (ln t - mu) / sigma), in log space:
+        # no cancellation far in the tail, and one normal tail instead of lev's two.
+        return np.asarray(np.exp(self._log_moment(1) + special.log_ndtr(self.sigma - self._z(t))))
+
     def _lev2(self, t: _Floats) -> _Floats:
         return self._limited(t, 2)
 
@@ -137,6 +142,13 @@ class Pareto(Severity):
         # int_0^t sf = scale * int_1^U v^-alpha dv with U = 1 + t / scale
         return self.scale * _h(1.0 + t / self.scale, self.alpha)
 
+    def _tail_mean(self, t: _Floats) -> _Floats:
+        # E[X; X > t] = t sf(t) + int_t^inf sf = (t + scale U / (alpha - 1)) U^-alpha, alpha > 1
+        if self.alpha <= 1:
+            return np.full(t.shape, math.inf)
+        u = 1.0 + t / self.scale
+        return np.asarray((t + self.scale * u / (self.alpha - 1.0)) * u ** -self.alpha)
+
     def _lev2(self, t: _Floats) -> _Floats:
         # 2 int_0^t x sf(x) dx = 2 scale^2 int_1^U (v - 1) v^-alpha dv
         u = 1.0 + t / self.scale
@@ -190,6 +202,12 @@ class Weibull(Severity):
 
     def _lev(self, t: _Floats) -> _Floats:
         return self._limited(t, 1)
+
+    def _tail_mean(self, t: _Floats) -> _Floats:
+        # E[X; X > t] = scale Gamma(1 + 1/shape) Q(1 + 1/shape, (t / scale)^shape)
+        a = 1.0 + 1.0 / self.shape
+        return np.asarray(self.scale * special.gamma(a)
+                          * special.gammaincc(a, (t / self.scale) ** self.shape))
 
     def _lev2(self, t: _Floats) -> _Floats:
         return self._limited(t, 2)

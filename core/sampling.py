@@ -246,6 +246,13 @@ class TiltGrid:
         """Reference point of the cell holding each y."""
         return np.asarray(self.ref[self.cell_of(y)], dtype=float)
 
+    def log_w(self, theta: float) -> float:
+        """log W, the stepwise cumulant of the tilt by theta (StepwiseTilt.log_w, the same
+        arithmetic, without building the sampler: root finding on theta asks for it often)."""
+        logw = self.log_probs + theta * self.ref
+        shift = logw.max()
+        return float(np.log(np.exp(logw - shift).sum()) + shift)
+
     def tilted_mean_ref(self, theta: float) -> float:
         """E[ref] under the stepwise tilt by theta."""
         logw = self.log_probs + theta * self.ref

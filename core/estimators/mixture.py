@@ -54,7 +54,7 @@ class TiltFamily:
         if grid is None:
             return float(self.portfolio.lines[k].paid_severity.cumulant(theta))
         step = self._steps.get((k, theta))
-        return (step or StepwiseTilt(grid, theta)).log_w
+        return step.log_w if step is not None else grid.log_w(theta)
 
     def proposal(self, theta: float) -> tuple[list[LineProposal], list[StepwiseTilt | None]]:
         props: list[LineProposal] = []

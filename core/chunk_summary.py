@@ -59,18 +59,13 @@ def _dense(v: FloatArray, top_k: int) -> Chunk | None:
     dev = scaled - mean[:, None]
     m2 = np.einsum("ij,ij->i", dev, dev)
     hits = np.count_nonzero(rows, axis=1).astype(np.int64)
-    m = rows.shape[1]
-    if m > top_k:
-        rows = np.partition(rows, m - top_k, axis=1)[:, m - top_k:]
-    top = np.sort(rows, axis=1)[:, ::-1]
-    return Chunk(hits, biggest, top.T.copy(), mean, m2, exponent)
+    return Chunk(hits, biggest, _largest_dense(rows, top_k).T.copy(), mean, m2, exponent)
 
 
 def _sparse(v: FloatArray, top_k: int) -> Chunk | None:
     n, t = v.shape
-    flat = v.ravel()
-    where = np.flatnonzero(flat != 0)  # a mask first: np.nonzero on floats is 10x slower
-    j, x = where % t, flat[where]
+    where, x = _nonzeros(v)
+    j = where % t
     # x > 0 is False for NaN and for negatives; a finite max rules out +inf.
     if x.size and not (np.all(x > 0) and np.isfinite(x.max())):
         return None
@@ -106,14 +101,25 @@ def largest(rows: FloatArray, k: int) -> FloatArray:
     """The k largest entries of each row of non-negative values (all if fewer), descending;
     shape (T, <= k). For merges of the chunks' K largest."""
     m = rows.shape[1]
-    if m <= k:
-        return np.sort(rows, axis=1)[:, ::-1]
-    if 2 * np.count_nonzero(rows) < rows.size:
-        flat = rows.ravel()
-        where = np.flatnonzero(flat != 0)  # a mask first: np.nonzero on floats is 10x slower
-        j, x, starts, _ = _by_column(where // m, flat[where], rows.shape[0])
+    if m > k and 2 * np.count_nonzero(rows) < rows.size:
+        where, x = _nonzeros(rows)
+        j, x, starts, _ = _by_column(where // m, x, rows.shape[0])
         return _top(j, x, starts, k, rows.shape[0]).T
-    return np.sort(np.partition(rows, m - k, axis=1)[:, m - k:], axis=1)[:, ::-1]
+    return _largest_dense(rows, k)
+
+
+def _largest_dense(rows: FloatArray, k: int) -> FloatArray:
+    m = rows.shape[1]
+    if m > k:
+        rows = np.partition(rows, m - k, axis=1)[:, m - k:]
+    return np.sort(rows, axis=1)[:, ::-1]
+
+
+def _nonzeros(a: FloatArray) -> tuple[IntArray, FloatArray]:
+    """Flat indices and values of the non-zero entries (NaN included), in row-major order."""
+    flat = a.ravel()
+    where = np.flatnonzero(flat != 0)  # a mask first: np.nonzero on floats is 10x slower
+    return where, flat[where]
 
 
 def _times_power_of_two(rows: FloatArray, powers: IntArray) -> FloatArray:

@@ -246,17 +246,22 @@ class TiltGrid:
         """Reference point of the cell holding each y."""
         return np.asarray(self.ref[self.cell_of(y)], dtype=float)
 
-    def log_w(self, theta: float) -> float:
-        """log W, the stepwise cumulant of the tilt by theta (StepwiseTilt.log_w, the same
-        arithmetic, without building the sampler: root finding on theta asks for it often)."""
+    def tilt_weights(self, theta: float) -> tuple[np.ndarray, float]:
+        """The cells' weights P(cell) e^{theta ref} divided by e^shift, and shift (their
+        largest log): the one place the stepwise tilt's weights are computed."""
         logw = self.log_probs + theta * self.ref
-        shift = logw.max()
-        return float(np.log(np.exp(logw - shift).sum()) + shift)
+        shift = float(logw.max())
+        return np.exp(logw - shift), shift
+
+    def log_w(self, theta: float) -> float:
+        """log W, the stepwise cumulant of the tilt by theta (StepwiseTilt.log_w, without
+        building the sampler: root finding on theta asks for it often)."""
+        w, shift = self.tilt_weights(theta)
+        return float(np.log(w.sum()) + shift)
 
     def tilted_mean_ref(self, theta: float) -> float:
         """E[ref] under the stepwise tilt by theta."""
-        logw = self.log_probs + theta * self.ref
-        w = np.exp(logw - logw.max())
+        w, _ = self.tilt_weights(theta)
         return float(w @ self.ref / w.sum())
 
 
@@ -295,9 +300,7 @@ class StepwiseTilt:
 
     def __init__(self, grid: TiltGrid, theta: float) -> None:
         self.grid, self.theta = grid, theta
-        logw = grid.log_probs + theta * grid.ref
-        shift = logw.max()
-        w = np.exp(logw - shift)
+        w, shift = grid.tilt_weights(theta)
         self.log_w = float(np.log(w.sum()) + shift)  # log W, the stepwise cumulant
         self._weights = w / w.sum()
         # g(y) = f(y) e^{theta ref(y)} / W >= base f(y), base = min over cells of e^{theta ref}/W:
